@@ -1,0 +1,1 @@
+"""Data layer: trees, treebank files, vocabulary, batch flattening, word vectors."""

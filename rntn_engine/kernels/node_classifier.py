@@ -1,0 +1,80 @@
+"""Softmax classifier at every node, with cross-entropy loss: forward and backward.
+
+Legend: N nodes in the batch, d vector size, C classes.
+
+Forward, for every node i with vector p_i (Socher et al. 2013, eq. 1):
+
+    s_i = Ws p_i + bs                        (C,)
+    y_i = softmax(s_i)                       (C,)
+    loss = scale * sum over labelled i of  -log y_i[t_i]
+         = scale * sum over labelled i of  (logsumexp(s_i) - s_i[t_i])
+
+Backward, with ds_i = scale * (y_i - onehot(t_i)) at labelled nodes and 0 at
+unlabelled ones:
+
+    dWs += sum_i ds_i p_i^T                  (C, d)
+    dbs += sum_i ds_i                        (C,)
+    e_i  = Ws^T ds_i                         (d,)  error reaching the node vector p_i
+
+``scale`` is 1/B for a minibatch of B trees. Kernels are pure: arrays in, arrays out.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False)
+def forward_classify(Y, S, P, Ws, bs, label, scale):
+    """Class probabilities of every node and the scaled cross-entropy loss.
+
+    Y (N, C) out: probabilities; S (N, C) out: scores Ws p + bs.
+    P (N, d) node vectors; Ws (C, d); bs (C,); label (N,) int32, -1 = unlabelled.
+    Returns loss = scale * sum over labelled nodes of -log Y[i, label[i]].
+    """
+    N, C = Y.shape
+    np.dot(P, Ws.T, S)  # (N, d) x (d, C) -> (N, C)
+    loss = 0.0
+    for i in range(N):
+        top = -np.inf
+        for c in range(C):
+            S[i, c] += bs[c]
+            if S[i, c] > top:
+                top = S[i, c]
+        total = 0.0
+        for c in range(C):
+            Y[i, c] = np.exp(S[i, c] - top)
+            total += Y[i, c]
+        for c in range(C):
+            Y[i, c] /= total
+        t = label[i]
+        if t >= 0:
+            # -log softmax(s)[t] = log(sum exp(s - top)) + top - s[t], exact even when y[t] underflows
+            loss += np.log(total) + top - S[i, t]
+    return loss * scale
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False)
+def backward_classify(dWs, dbs, E, dS, Y, P, Ws, label, scale):
+    """Gradients of the classifier and the error each node vector receives from its own classifier.
+
+    dWs (C, d) += ; dbs (C,) += ; E (N, d) out (overwritten): Ws^T ds per node.
+    dS (N, C) workspace; Y (N, C) from forward_classify; P (N, d); Ws (C, d); label (N,).
+    """
+    N, C = Y.shape
+    for i in range(N):
+        t = label[i]
+        if t < 0:
+            for c in range(C):
+                dS[i, c] = 0.0
+        else:
+            for c in range(C):
+                dS[i, c] = scale * Y[i, c]
+            dS[i, t] -= scale
+    # dWs += dS^T P: accumulate through a small product to keep `+=` the only write to gradients
+    dWs += np.dot(dS.T, P)  # (C, N) x (N, d)
+    for i in range(N):
+        for c in range(C):
+            dbs[c] += dS[i, c]
+    np.dot(dS, Ws, E)  # (N, C) x (C, d) -> (N, d)

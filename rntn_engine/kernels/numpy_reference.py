@@ -1,0 +1,79 @@
+"""Plain NumPy twin of the kernels, node by node: the oracle for tests and the text for readers.
+
+Legend: N nodes, d vector size, D = 2d, C classes, |V| vocabulary size.
+
+Same math as tree_compose.py + node_classifier.py (Socher et al. 2013), written the
+direct way: no levels, no symmetric layout, one node at a time in post-order for
+the forward pass and in reverse post-order for the backward pass.
+
+    leaf:      p = L[w]
+    internal:  x = [p_l ; p_r];  p = tanh(W x + b + h),  h_k = x^T V[k] x  (h = 0 for the RNN)
+    all nodes: y = softmax(Ws p + bs);  loss = scale * sum_labelled -log y[t]
+
+    ds = scale * (y - onehot(t)) (0 when unlabelled)
+    dWs += ds p^T;  dbs += ds;  e = Ws^T ds + (error from the parent)
+    internal: delta = e * (1 - p^2);  dW += delta x^T;  db += delta;  dV[k] += delta_k x x^T
+              e_x = W^T delta + sum_k delta_k (V[k] + V[k]^T) x;  left gets e_x[:d], right e_x[d:]
+    leaf:     dL[w] += e
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+
+def reference_forward(L, W, b, V, Ws, bs, word, left, right, label, scale):
+    """Returns (P (N, d), Y (N, C), loss). V is None for the RNN."""
+    N = word.shape[0]
+    d = L.shape[1]
+    P = np.zeros((N, d), dtype=L.dtype)
+    Y = np.zeros((N, Ws.shape[0]), dtype=L.dtype)
+    loss = 0.0
+    for i in range(N):
+        if left[i] < 0:
+            P[i] = L[word[i]]
+        else:
+            x = np.concatenate([P[left[i]], P[right[i]]])
+            z = W @ x + b
+            if V is not None:
+                z = z + np.array([x @ V[k] @ x for k in range(d)])
+            P[i] = np.tanh(z)
+        s = Ws @ P[i] + bs
+        y = np.exp(s - s.max())
+        Y[i] = y / y.sum()
+        if label[i] >= 0:
+            loss += -np.log(Y[i, label[i]])
+    return P, Y, scale * loss
+
+
+def reference_backward(L, W, b, V, Ws, bs, word, left, right, label, scale, P, Y):
+    """Returns a dict of gradients with keys L, W, b, V (or absent for the RNN), Ws, bs."""
+    N, d = P.shape
+    grads = {"L": np.zeros_like(L), "W": np.zeros_like(W), "b": np.zeros_like(b),
+             "Ws": np.zeros_like(Ws), "bs": np.zeros_like(bs)}
+    if V is not None:
+        grads["V"] = np.zeros_like(V)
+    E = np.zeros((N, d), dtype=P.dtype)  # error reaching each node vector from its parent
+    for i in range(N - 1, -1, -1):  # reverse post-order: parents before children
+        ds = np.zeros(Ws.shape[0], dtype=P.dtype)
+        if label[i] >= 0:
+            ds = scale * Y[i].copy()
+            ds[label[i]] -= scale
+        grads["Ws"] += np.outer(ds, P[i])
+        grads["bs"] += ds
+        e = Ws.T @ ds + E[i]
+        if left[i] < 0:
+            grads["L"][word[i]] += e
+            continue
+        x = np.concatenate([P[left[i]], P[right[i]]])
+        delta = e * (1.0 - P[i] * P[i])
+        grads["W"] += np.outer(delta, x)
+        grads["b"] += delta
+        e_x = W.T @ delta
+        if V is not None:
+            for k in range(d):
+                grads["V"][k] += delta[k] * np.outer(x, x)
+                e_x = e_x + delta[k] * (V[k] + V[k].T) @ x
+        E[left[i]] += e_x[:d]
+        E[right[i]] += e_x[d:]
+    return grads

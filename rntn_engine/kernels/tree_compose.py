@@ -1,0 +1,161 @@
+"""Composition up the tree for the recursive (RNN) and tensor (RNTN) models: forward and backward.
+
+Legend: N nodes in the batch, M internal nodes, d vector size, D = 2d,
+|V| vocabulary size. Nodes are in post-order; ``order`` lists internal nodes by
+height and ``level_start`` cuts it into levels (see data/batches.py).
+
+Forward (Socher et al. 2013, eqs. 2-3), for every node in post-order:
+
+    leaf with word w:        p = L[w]
+    internal, children l, r: x = [p_l ; p_r]                      (D,)
+        RNN:   p = tanh(W x + b)
+        RNTN:  p = tanh(W x + b + h),   h_k = x^T V[k] x,  k = 1..d
+
+Only the symmetric part of V[k] reaches h_k, so with S[k] = V[k] + V[k]^T and
+q_k = S[k] x (a D-vector per k), h_k = x . q_k / 2. A level of n nodes computes
+every q at once, Q = X Vsym, where Vsym (D, d*D) holds Vsym[i, k*D + j] = S[k][i, j].
+The same Q gives the tensor part of the input gradient, d h_k / d x = q_k.
+
+Backward, in reverse (top level first), with e the error reaching p (from its own
+classifier plus its parent):
+
+    delta = e * (1 - p*p)                                          (d,)
+    dW   += delta x^T        db += delta
+    dV[k] += delta_k x x^T                                         (RNTN)
+    e_x   = W^T delta + sum_k delta_k q_k                          (D,)
+    e_l  += e_x[:d]          e_r += e_x[d:]
+    leaf:   dL[w] += e       (scatter_word_gradients)
+
+dW and dV are accumulated once per batch, as single matrix products over all M
+internal nodes: dW += Delta^T X and dVsym_layout += X^T G with
+G[m, k*D + j] = Delta[m, k] X[m, j]; the latter is then added to dV with
+dV[k, i, j] += (X^T G)[i, k*D + j].
+
+Cost per internal node: forward 2 d D + d D^2 multiply-adds, backward about the
+same again for e_x and d D^2 for dV: 16 d^3 floating-point operations for the
+tensor terms where the unsymmetrised form needs 24 d^3.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False)
+def symmetric_tensor_layout(Vsym, V):
+    """Vsym (D, d*D) out: Vsym[i, k*D + j] = V[k, i, j] + V[k, j, i].   V (d, D, D)."""
+    d, D, _ = V.shape
+    for i in range(D):
+        for k in range(d):
+            for j in range(D):
+                Vsym[i, k * D + j] = V[k, i, j] + V[k, j, i]
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False)
+def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_start, use_tensor):
+    """Node vectors of a whole batch, level by level.
+
+    P (N, d) out: node vectors.   X (M, D) out: children [p_l ; p_r] per internal node, in `order`.
+    Z (M, d) workspace: pre-activations.   Q (M, d*D) out: X Vsym (used only when use_tensor).
+    L (|V|, d); W (d, D); b (d,); Vsym (D, d*D); word/left/right (N,) int32;
+    order (M,) int32; level_start (H+1,) int32; use_tensor: RNTN if True, RNN if False.
+    """
+    N, d = P.shape
+    D = 2 * d
+    for i in range(N):  # leaves: p = L[w]
+        if left[i] < 0:
+            w = word[i]
+            for k in range(d):
+                P[i, k] = L[w, k]
+    for level in range(level_start.shape[0] - 1):
+        a = level_start[level]
+        z = level_start[level + 1]
+        for m in range(a, z):  # x = [p_l ; p_r]
+            i = order[m]
+            for k in range(d):
+                X[m, k] = P[left[i], k]
+                X[m, d + k] = P[right[i], k]
+        np.dot(X[a:z], W.T, Z[a:z])  # W x for the level: (n, D) x (D, d)
+        if use_tensor:
+            np.dot(X[a:z], Vsym, Q[a:z])  # q_k = S[k] x for the level: (n, D) x (D, d*D)
+            for m in range(a, z):  # h_k = x . q_k / 2
+                for k in range(d):
+                    h = 0.0
+                    for j in range(D):
+                        h += X[m, j] * Q[m, k * D + j]
+                    Z[m, k] += 0.5 * h
+        for m in range(a, z):  # p = tanh(W x + b + h)
+            i = order[m]
+            for k in range(d):
+                P[i, k] = np.tanh(Z[m, k] + b[k])
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False)
+def backward_compose(dW, db, dVsym, E, Delta, EX, P, X, Q, W, left, right, order, level_start, use_tensor):
+    """Gradients of W, b (and the symmetric-layout tensor gradient), and errors down to the leaves.
+
+    dW (d, D) += ; db (d,) += ; dVsym (D, d*D) += X^T G (RNTN; see module docstring).
+    E (N, d) in/out: error reaching each node vector; on entry from the node's own
+    classifier, on exit also from its parent (leaves' rows are then final).
+    Delta (M, d), EX (M, D) workspaces.  P, X, Q from forward_compose; W (d, D).
+    """
+    N, d = P.shape
+    D = 2 * d
+    M = order.shape[0]
+    for level in range(level_start.shape[0] - 2, -1, -1):  # top level first
+        a = level_start[level]
+        z = level_start[level + 1]
+        for m in range(a, z):  # delta = e * (1 - p*p)
+            i = order[m]
+            for k in range(d):
+                Delta[m, k] = E[i, k] * (1.0 - P[i, k] * P[i, k])
+        np.dot(Delta[a:z], W, EX[a:z])  # W^T delta for the level: (n, d) x (d, D)
+        if use_tensor:
+            for m in range(a, z):  # + sum_k delta_k q_k
+                for k in range(d):
+                    dk = Delta[m, k]
+                    for j in range(D):
+                        EX[m, j] += dk * Q[m, k * D + j]
+        for m in range(a, z):  # e_l += e_x[:d], e_r += e_x[d:]
+            i = order[m]
+            l = left[i]
+            r = right[i]
+            for k in range(d):
+                E[l, k] += EX[m, k]
+                E[r, k] += EX[m, d + k]
+    if M == 0:
+        return
+    dW += np.dot(Delta.T, X)  # sum_m delta_m x_m^T: (d, M) x (M, D)
+    for m in range(M):
+        for k in range(d):
+            db[k] += Delta[m, k]
+    if use_tensor:
+        # G[m, k*D + j] = delta_k x_j, reusing Q's storage (its forward values are no longer needed)
+        for m in range(M):
+            for k in range(d):
+                dk = Delta[m, k]
+                for j in range(D):
+                    Q[m, k * D + j] = dk * X[m, j]
+        dVsym += np.dot(X.T, Q)  # (D, M) x (M, d*D)
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False)
+def add_symmetric_layout_gradient(dV, dVsym):
+    """dV (d, D, D) += the symmetric-layout gradient: dV[k, i, j] += dVsym[i, k*D + j]."""
+    d, D, _ = dV.shape
+    for k in range(d):
+        for i in range(D):
+            for j in range(D):
+                dV[k, i, j] += dVsym[i, k * D + j]
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False)
+def scatter_word_gradients(dL, E, word, leaves):
+    """dL (|V|, d) += E[i] at row word[i] for every leaf i, in the order of ``leaves``."""
+    d = E.shape[1]
+    for n in range(leaves.shape[0]):
+        i = leaves[n]
+        w = word[i]
+        for k in range(d):
+            dL[w, k] += E[i, k]

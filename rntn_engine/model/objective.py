@@ -1,0 +1,201 @@
+"""The training objective of a minibatch: loss and gradient, and forward-only prediction.
+
+For a minibatch of B trees (DESIGN.md):
+
+    J = (1/B) * sum over labelled nodes of -log y[t]
+        + sum over groups g of (lambda_g / 2) * ||theta_g||^2
+
+with groups words (L), compose (W), tensor (V), classifier (Ws); biases are not
+regularised. The L2 term is part of *every* minibatch objective and is applied
+densely: every row of L receives lambda_words * L[w] each step, whether or not the
+minibatch contains word w. This is the exact gradient of J, so AdaGrad sees it
+too; it costs one pass over L per step (a lazy scheme cannot be exact under
+AdaGrad, whose step size depends on the whole gradient history).
+
+Parallelism and determinism: a minibatch is cut into a fixed number of chunks
+(``grad_chunks``, a setting stored with the run, not the machine's core count).
+Each chunk runs the serial kernels into buffers of its own; chunk gradients are
+then summed in chunk order. The result is therefore bitwise the same whatever the
+number of threads that run the chunks.
+"""
+
+from __future__ import annotations
+
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
+
+import numpy as np
+
+from rntn_engine.data.batches import EncodedTreebank, FlatBatch, make_batch
+from rntn_engine.kernels.node_classifier import backward_classify, forward_classify
+from rntn_engine.kernels.tree_compose import (
+    add_symmetric_layout_gradient,
+    backward_compose,
+    forward_compose,
+    scatter_word_gradients,
+    symmetric_tensor_layout,
+)
+from rntn_engine.model.parameters import L2_GROUP, Parameters
+
+
+@dataclass(frozen=True)
+class L2Strengths:
+    """lambda per L2 group (see model/parameters.py for which parameter is in which group)."""
+
+    words: float = 1e-4  # word vectors L
+    compose: float = 1e-3  # composition matrix W
+    tensor: float = 1e-3  # composition tensor V
+    classifier: float = 1e-4  # classifier weights Ws
+
+    def of(self, group: str | None) -> float:
+        return 0.0 if group is None else float(getattr(self, group))
+
+
+def split_into_chunks(bank: EncodedTreebank, tree_ids: np.ndarray, chunks: int) -> list[FlatBatch]:
+    """Cut a minibatch into at most ``chunks`` contiguous groups of trees with similar node counts."""
+    tree_ids = np.asarray(tree_ids, dtype=np.int64)
+    chunks = max(1, min(chunks, len(tree_ids)))
+    sizes = (bank.start[tree_ids + 1] - bank.start[tree_ids]).astype(np.float64)
+    cum = np.cumsum(sizes)
+    # cut after the tree where the running node count first reaches k/chunks of the total
+    cuts = np.searchsorted(cum, cum[-1] * np.arange(1, chunks) / chunks, side="left") + 1
+    bounds = np.unique(np.concatenate([[0], np.clip(cuts, 1, len(tree_ids)), [len(tree_ids)]]))
+    return [make_batch(bank, tree_ids[a:z]) for a, z in zip(bounds[:-1], bounds[1:]) if z > a]
+
+
+class _Workspace:
+    """Grow-only scratch arrays for one chunk, so steady-state steps allocate nothing per node."""
+
+    def __init__(self, dtype: np.dtype) -> None:
+        self.dtype = dtype
+        self.buffers: dict[str, np.ndarray] = {}
+
+    def get(self, name: str, rows: int, cols: int) -> np.ndarray:
+        buf = self.buffers.get(name)
+        if buf is None or buf.shape[0] < rows or buf.shape[1] != cols:
+            buf = np.empty((max(rows, 16), cols), dtype=self.dtype)
+            self.buffers[name] = buf
+        return buf[:rows]
+
+
+class TreeModelObjective:
+    """Loss, gradient and class probabilities of the RNN / RNTN over flattened batches."""
+
+    def __init__(self, params: Parameters, l2: L2Strengths | None = None, threads: int = 1) -> None:
+        self.shape = params.shape
+        self.use_tensor = self.shape.model == "rntn"
+        self.l2 = l2 or L2Strengths()
+        self.threads = max(1, int(threads))
+        self._dtype = params.flat.dtype
+        self._workspaces: list[_Workspace] = []
+        self._chunk_grads: list[Parameters] = []
+        self._pool = ThreadPoolExecutor(self.threads) if self.threads > 1 else None
+        d = self.shape.dim
+        self._Vsym = np.zeros((2 * d, d * 2 * d) if self.use_tensor else (0, 0), dtype=self._dtype)
+        self._dVsym: list[np.ndarray] = []
+
+    def close(self) -> None:
+        if self._pool is not None:
+            self._pool.shutdown()
+            self._pool = None
+
+    # --- one chunk: forward (and backward) with the serial kernels -------------------------------
+
+    def _slot(self, k: int) -> _Workspace:
+        while len(self._workspaces) <= k:
+            self._workspaces.append(_Workspace(self._dtype))
+        return self._workspaces[k]
+
+    def _forward_chunk(self, params: Parameters, batch: FlatBatch, ws: _Workspace, scale: float):
+        d, C = self.shape.dim, self.shape.num_classes
+        N, M, D = batch.n_nodes, batch.n_internal, 2 * d
+        P = ws.get("P", N, d)  # (N, d) node vectors
+        X = ws.get("X", M, D)  # (M, D) children of each internal node
+        Z = ws.get("Z", M, d)  # (M, d) pre-activations
+        Q = ws.get("Q", M if self.use_tensor else 0, d * D if self.use_tensor else 0)  # (M, d*D)
+        Y = ws.get("Y", N, C)  # (N, C) class probabilities
+        S = ws.get("S", N, C)  # (N, C) class scores
+        forward_compose(P, X, Z, Q, params.L, params.W, params.b, self._Vsym,
+                        batch.word, batch.left, batch.right, batch.order, batch.level_start, self.use_tensor)
+        loss = forward_classify(Y, S, P, params.Ws, params.bs, batch.label, scale)
+        return loss, P, X, Q, Y
+
+    def _gradient_chunk(self, params: Parameters, grads: Parameters, dVsym: np.ndarray,
+                        batch: FlatBatch, ws: _Workspace, scale: float) -> float:
+        d, C = self.shape.dim, self.shape.num_classes
+        N, M, D = batch.n_nodes, batch.n_internal, 2 * d
+        loss, P, X, Q, Y = self._forward_chunk(params, batch, ws, scale)
+        E = ws.get("E", N, d)  # (N, d) error reaching each node vector
+        dS = ws.get("dS", N, C)  # (N, C) softmax error
+        Delta = ws.get("Delta", M, d)  # (M, d) error at pre-activations
+        EX = ws.get("EX", M, D)  # (M, D) error reaching the children
+        backward_classify(grads.Ws, grads.bs, E, dS, Y, P, params.Ws, batch.label, scale)
+        backward_compose(grads.W, grads.b, dVsym, E, Delta, EX, P, X, Q, params.W,
+                         batch.left, batch.right, batch.order, batch.level_start, self.use_tensor)
+        return loss
+
+    # --- public --------------------------------------------------------------------------------------
+
+    def loss_and_gradient(self, params: Parameters, grads: Parameters, chunks: list[FlatBatch]) -> float:
+        """J of the minibatch made of ``chunks``; writes dJ/dtheta into ``grads`` (zeroed here first)."""
+        n_trees = sum(c.n_trees for c in chunks)
+        scale = 1.0 / n_trees
+        if self.use_tensor:
+            symmetric_tensor_layout(self._Vsym, params.V)
+        while len(self._chunk_grads) < len(chunks):
+            self._chunk_grads.append(params.zeros_like())
+            self._dVsym.append(np.zeros_like(self._Vsym))
+
+        def run(k: int) -> float:
+            g = self._chunk_grads[k]
+            g.zero_()
+            self._dVsym[k][:] = 0
+            return self._gradient_chunk(params, g, self._dVsym[k], chunks[k], self._slot(k), scale)
+
+        if self._pool is not None and len(chunks) > 1:
+            losses = list(self._pool.map(run, range(len(chunks))))
+        else:
+            losses = [run(k) for k in range(len(chunks))]
+
+        # reduce in chunk order: bitwise independent of the thread count
+        grads.zero_()
+        loss = 0.0
+        for k, batch in enumerate(chunks):
+            loss += losses[k]
+            g = self._chunk_grads[k]
+            for name in ("W", "b", "Ws", "bs"):
+                grads[name] += g[name]
+            if self.use_tensor:
+                add_symmetric_layout_gradient(grads.V, self._dVsym[k])
+            scatter_word_gradients(grads.L, self._slot(k).buffers["E"], batch.word, batch.leaves)
+        return loss + self.add_l2(params, grads)
+
+    def add_l2(self, params: Parameters, grads: Parameters | None) -> float:
+        """Add the L2 term: returns sum_g lambda_g/2 ||theta_g||^2, adds lambda_g theta_g to ``grads``."""
+        penalty = 0.0
+        for name in params.names():
+            lam = self.l2.of(L2_GROUP[name])
+            if lam == 0.0:
+                continue
+            theta = params[name]
+            penalty += 0.5 * lam * float(np.dot(theta.ravel().astype(np.float64), theta.ravel().astype(np.float64)))
+            if grads is not None:
+                grads[name] += grads.flat.dtype.type(lam) * theta
+        return penalty
+
+    def forward(self, params: Parameters, batch: FlatBatch) -> tuple[float, np.ndarray, np.ndarray]:
+        """Forward only: (cross-entropy sum over labelled nodes, P (N, d) copy, Y (N, C) copy)."""
+        if self.use_tensor:
+            symmetric_tensor_layout(self._Vsym, params.V)
+        loss, P, _, _, Y = self._forward_chunk(params, batch, self._slot(0), 1.0)
+        return loss, P.copy(), Y.copy()
+
+    def loss(self, params: Parameters, chunks: list[FlatBatch]) -> float:
+        """J of the minibatch without the gradient (the forward-only twin of loss_and_gradient)."""
+        n_trees = sum(c.n_trees for c in chunks)
+        if self.use_tensor:
+            symmetric_tensor_layout(self._Vsym, params.V)
+        total = 0.0
+        for k, batch in enumerate(chunks):
+            total += self._forward_chunk(params, batch, self._slot(k), 1.0 / n_trees)[0]
+        return total + self.add_l2(params, None)

@@ -1,0 +1,133 @@
+"""Model parameters: one flat buffer with named, shaped views.
+
+Legend: |V| vocabulary size, d vector size, D = 2d, C classes.
+
+    name  shape        meaning                                   L2 group
+    L     (|V|, d)     word vectors, row 0 = unknown word        words
+    W     (d, D)       composition matrix                        compose
+    b     (d,)         composition bias                          (none)
+    V     (d, D, D)    composition tensor (RNTN only)            tensor
+    Ws    (C, d)       classifier weights                        classifier
+    bs    (C,)         classifier bias                           (none)
+
+Because every array is a view of one contiguous buffer, the optimiser and the
+checkpoint writer treat all of them as one vector; a gradient is the same
+structure filled with zeros (:meth:`Parameters.zeros_like`).
+
+Initialisation (seeded, documented in README):
+    L  ~ U(-0.1, 0.1)
+    W  ~ 0.5 [I I] + U(-r, r),  r = 1/sqrt(D)   (starts near the average of the children)
+    V  ~ U(-1/D, 1/D)                           (small: the model starts close to the RNN)
+    Ws ~ U(-s, s),  s = sqrt(6 / (C + d))        (Glorot & Bengio 2010)
+    b, bs = 0
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+MODELS = ("rnn", "rntn")
+DTYPES = {"float32": np.float32, "float64": np.float64}
+
+# which L2 group regularises each parameter (None: not regularised)
+L2_GROUP = {"L": "words", "W": "compose", "b": None, "V": "tensor", "Ws": "classifier", "bs": None}
+
+
+def parameter_shapes(model: str, vocab_size: int, dim: int, num_classes: int) -> dict[str, tuple[int, ...]]:
+    """Ordered name -> shape of every parameter array of ``model``."""
+    if model not in MODELS:
+        raise ValueError(f"unknown model {model!r}: expected one of {', '.join(MODELS)}")
+    d, D = dim, 2 * dim
+    shapes = {"L": (vocab_size, d), "W": (d, D), "b": (d,)}
+    if model == "rntn":
+        shapes["V"] = (d, D, D)
+    shapes["Ws"] = (num_classes, d)
+    shapes["bs"] = (num_classes,)
+    return shapes
+
+
+@dataclass(frozen=True)
+class ModelShape:
+    """Everything that fixes the size and meaning of the parameter buffer."""
+
+    model: str  # "rnn" or "rntn"
+    vocab_size: int  # rows of L, including the unknown word
+    dim: int  # d, the size of every node vector
+    num_classes: int  # C
+    dtype: str  # "float32" or "float64"
+
+    def shapes(self) -> dict[str, tuple[int, ...]]:
+        return parameter_shapes(self.model, self.vocab_size, self.dim, self.num_classes)
+
+    def count(self) -> int:
+        """Number of scalar parameters."""
+        return int(sum(np.prod(s) for s in self.shapes().values()))
+
+    def training_bytes(self) -> int:
+        """Parameters + gradient + AdaGrad sums, in bytes (workspaces excluded)."""
+        return 3 * self.count() * np.dtype(DTYPES[self.dtype]).itemsize
+
+
+class Parameters:
+    """A flat buffer and named views into it (``params.L``, ``params["W"]``, ...)."""
+
+    def __init__(self, shape: ModelShape, flat: np.ndarray | None = None) -> None:
+        self.shape = shape
+        dtype = DTYPES[shape.dtype]
+        total = shape.count()
+        if flat is None:
+            flat = np.zeros(total, dtype=dtype)
+        if flat.dtype != dtype or flat.shape != (total,):
+            raise ValueError(f"flat buffer must be ({total},) {shape.dtype}, got {flat.shape} {flat.dtype}")
+        self.flat = flat
+        self.views: dict[str, np.ndarray] = {}
+        offset = 0
+        for name, s in shape.shapes().items():
+            n = int(np.prod(s))
+            self.views[name] = flat[offset : offset + n].reshape(s)
+            offset += n
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        return self.views[name]
+
+    def __setitem__(self, name: str, value: np.ndarray) -> None:
+        # `params[name] += g` modifies the view in place and then assigns it back: nothing to copy
+        view = self.views[name]
+        if value is not view:
+            view[...] = value
+
+    def __getattr__(self, name: str) -> np.ndarray:
+        views = self.__dict__.get("views")
+        if views is not None and name in views:
+            return views[name]
+        raise AttributeError(name)
+
+    def names(self) -> list[str]:
+        return list(self.views)
+
+    def zeros_like(self) -> "Parameters":
+        return Parameters(self.shape)
+
+    def copy(self) -> "Parameters":
+        return Parameters(self.shape, self.flat.copy())
+
+    def zero_(self) -> None:
+        """The one explicit zeroing step of a gradient buffer."""
+        self.flat[:] = 0
+
+
+def init_parameters(shape: ModelShape, rng: np.random.Generator) -> Parameters:
+    """Random initial parameters, drawn in a fixed order from ``rng`` (see module docstring)."""
+    params = Parameters(shape)
+    d, D, C = shape.dim, 2 * shape.dim, shape.num_classes
+    dtype = params.flat.dtype
+    params.L[:] = rng.uniform(-0.1, 0.1, size=params.L.shape).astype(dtype)
+    r = 1.0 / np.sqrt(D)
+    params.W[:] = (0.5 * np.hstack([np.eye(d), np.eye(d)]) + rng.uniform(-r, r, size=(d, D))).astype(dtype)
+    if "V" in params.views:
+        params.V[:] = rng.uniform(-1.0 / D, 1.0 / D, size=(d, D, D)).astype(dtype)
+    s = np.sqrt(6.0 / (C + d))
+    params.Ws[:] = rng.uniform(-s, s, size=(C, d)).astype(dtype)
+    return params
