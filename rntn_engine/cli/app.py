@@ -12,16 +12,18 @@ from __future__ import annotations
 import sys
 from typing import Annotated, Optional
 
-import click
 import typer
 
-from rntn_engine import __version__
-from rntn_engine.data.errors import InputError
+try:  # recent typer releases vendor click as typer._click; older ones use click itself
+    from typer._click import exceptions as click_exceptions
+except ImportError:  # pragma: no cover
+    from click import exceptions as click_exceptions
 
-EXIT_OK = 0
-EXIT_BAD_INPUT = 1
-EXIT_USAGE = 2
-EXIT_INTERRUPTED = 130
+from rntn_engine import __version__
+from rntn_engine.cli.app_exit import EXIT_BAD_INPUT, EXIT_INTERRUPTED, EXIT_OK, EXIT_USAGE
+from rntn_engine.data.errors import InputError
+from rntn_engine.run.run_config import ConfigError
+from rntn_engine.run.run_errors import TrainingError
 
 app = typer.Typer(
     name="rntn",
@@ -54,10 +56,8 @@ def _register_commands() -> None:
     from rntn_engine.cli import stats_command
 
     app.command("stats")(stats_command.stats)
-    try:
-        from rntn_engine.cli import train_command, gradcheck_command
-    except ImportError:  # pragma: no cover - engine commands arrive with the engine
-        return
+    from rntn_engine.cli import gradcheck_command, train_command
+
     app.command("train")(train_command.train)
     app.command("gradcheck")(gradcheck_command.gradcheck)
 
@@ -65,40 +65,35 @@ def _register_commands() -> None:
 _register_commands()
 
 
-def fail(message: str, code: int = EXIT_BAD_INPUT) -> "typer.Exit":
-    """Print one line to stderr and return the Exit to raise."""
-    typer.echo(message, err=True)
-    return typer.Exit(code)
-
-
 def main(argv: list[str] | None = None) -> int:
     """Console entry point: run the app, turning every known error into one line and an exit code."""
     command = typer.main.get_command(app)
     args = sys.argv[1:] if argv is None else argv
     try:
-        command.main(args=args, prog_name="rntn", standalone_mode=False)
-    except click.exceptions.NoArgsIsHelpError as exc:  # `rntn` alone: help, exit 2 like other usage errors
+        result = command.main(args=args, prog_name="rntn", standalone_mode=False)
+    except click_exceptions.NoArgsIsHelpError as exc:  # `rntn` alone: help, exit 2 like other usage errors
         typer.echo(exc.ctx.get_help() if exc.ctx else str(exc))
         return EXIT_USAGE
-    except click.UsageError as exc:
-        where = f" (see 'rntn {exc.ctx.info_name} --help')" if exc.ctx and exc.ctx.parent else " (see 'rntn --help')"
-        typer.echo(f"rntn: error: {exc.format_message()}{where}", err=True)
+    except click_exceptions.UsageError as exc:
+        ctx = exc.ctx
+        where = f"rntn {ctx.info_name}" if ctx is not None and ctx.parent is not None else "rntn"
+        typer.echo(f"rntn: error: {exc.format_message()} (see '{where} --help')", err=True)
         return EXIT_USAGE
-    except InputError as exc:
+    except ConfigError as exc:
+        typer.echo(f"rntn: error: {exc}", err=True)
+        return EXIT_USAGE
+    except (InputError, TrainingError) as exc:
         typer.echo(str(exc), err=True)
         return EXIT_BAD_INPUT
-    except click.exceptions.Exit as exc:
-        return exc.exit_code
-    except click.exceptions.Abort:
+    except typer.Exit as exc:
+        return int(getattr(exc, "exit_code", 0) or 0)
+    except (typer.Abort, KeyboardInterrupt):
         typer.echo("rntn: interrupted", err=True)
         return EXIT_INTERRUPTED
-    except click.ClickException as exc:
+    except click_exceptions.ClickException as exc:
         typer.echo(f"rntn: error: {exc.format_message()}", err=True)
         return exc.exit_code
-    except KeyboardInterrupt:
-        typer.echo("rntn: interrupted", err=True)
-        return EXIT_INTERRUPTED
-    return EXIT_OK
+    return result if isinstance(result, int) else EXIT_OK
 
 
 if __name__ == "__main__":  # pragma: no cover

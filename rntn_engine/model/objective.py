@@ -25,6 +25,8 @@ from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.linalg.cython_blas  # noqa: F401  the BLAS numba's np.dot calls: loaded before it is limited
+from threadpoolctl import threadpool_limits
 
 from rntn_engine.data.batches import EncodedTreebank, FlatBatch, make_batch
 from rntn_engine.kernels.node_classifier import backward_classify, forward_classify
@@ -90,11 +92,17 @@ class TreeModelObjective:
         self._workspaces: list[_Workspace] = []
         self._chunk_grads: list[Parameters] = []
         self._pool = ThreadPoolExecutor(self.threads) if self.threads > 1 else None
+        # Parallelism comes from chunks on our own threads; BLAS inside them runs single-threaded
+        # (nested BLAS threads on top of ours ran many times slower when measured).
+        self._blas_limit = threadpool_limits(limits=1, user_api="blas")
         d = self.shape.dim
         self._Vsym = np.zeros((2 * d, d * 2 * d) if self.use_tensor else (0, 0), dtype=self._dtype)
         self._dVsym: list[np.ndarray] = []
 
     def close(self) -> None:
+        if self._blas_limit is not None:
+            self._blas_limit.restore_original_limits()
+            self._blas_limit = None
         if self._pool is not None:
             self._pool.shutdown()
             self._pool = None

@@ -1,0 +1,5 @@
+"""Errors that stop a run, each with a message that says what to do (no heavy imports here)."""
+
+
+class TrainingError(RuntimeError):
+    """Training cannot go on (for example the loss became NaN); the message says what to do."""
