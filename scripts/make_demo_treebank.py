@@ -6,7 +6,7 @@ feedback cards about its glasshouses, guided walks, café, gift shop, staff,
 paths and events. Every sentence is generated here from a small phrase grammar,
 so the trees are binary by construction and every node gets a sentiment label.
 
-Labels are compositional (see ``phrase_score``): each word has a polarity from
+Labels are compositional (see ``compose``): each word has a polarity from
 ``POLARITY`` (absent words score 0), and a node's score is computed bottom-up
 from its two children by these rules, tried in order:
 
@@ -15,7 +15,7 @@ from its two children by these rules, tried in order:
     left is a diminisher leaf   s = factor * s_right   (0 < factor < 1)
     left is the leaf "but"      s = s_right            (a "contrast phrase")
     right is the leaf "!"       s = 5/4 * s_left
-    right is a contrast phrase  s = 1/4 * s_left + s_right   ("X but Y" leans to Y)
+    right is a contrast phrase  s = 1/6 * s_left + s_right   ("X but Y" leans to Y)
     otherwise                   s = s_left + s_right
 
 Scores are exact fractions (``fractions.Fraction``), so thresholds are exact and
@@ -26,10 +26,11 @@ five classes by ``score_label``:
     -3/10 < s < 3/10 -> 2 (neutral)    3/10 <= s < 3/2 -> 3 (positive)
     s >= 3/2 -> 4 (very positive)
 
-Randomness comes only from ``random.Random(seed)`` through ``randrange`` (whose
-stream is fixed across Python versions); no set or dict is ever iterated for a
-choice, and words in ``*_RARE`` lists appear only in the dev and test splits
-(so those splits have words the training split never saw).
+Randomness comes only from ``random.Random(seed).getrandbits`` (Mersenne
+Twister words, the same stream in every Python 3 version) through ``below``;
+no set or dict is ever iterated for a choice. Every word list is a pair
+(common, rare): rare entries are drawn only while writing the dev and test
+splits, so those hold words training never saw.
 
 Usage:  python scripts/make_demo_treebank.py [--out-dir data_demo] [--seed 4711]
 """
@@ -57,7 +58,9 @@ RARE_PERCENT = 8  # chance (in %) that a dev/test word slot draws from a rare li
 # Composition: operator words and label buckets
 # ---------------------------------------------------------------------------
 
-NEGATORS = {"not": Fraction(-1, 2), "never": Fraction(-3, 5), "hardly": Fraction(-2, 5), "barely": Fraction(-2, 5)}
+NEGATORS = {
+    "not": Fraction(-1, 2), "never": Fraction(-3, 5), "hardly": Fraction(-2, 5), "barely": Fraction(-2, 5),
+}
 INTENSIFIERS = {
     "very": Fraction(3, 2), "really": Fraction(3, 2), "truly": Fraction(3, 2), "so": Fraction(3, 2),
     "remarkably": Fraction(8, 5), "extremely": Fraction(7, 4), "incredibly": Fraction(7, 4),
@@ -71,10 +74,12 @@ DIMINISHERS = {
 }
 CONTRAST_WORD = "but"
 EXCLAIM_WORD, EXCLAIM_FACTOR = "!", Fraction(5, 4)
-CONTRAST_LEFT_WEIGHT = Fraction(1, 4)
+CONTRAST_LEFT_WEIGHT = Fraction(1, 6)
 
 # label k is the first k with score <= upper bound; bounds are exact fractions
-LABEL_UPPER_BOUNDS = ((Fraction(-3, 2), True), (Fraction(-3, 10), True), (Fraction(3, 10), False), (Fraction(3, 2), False))
+LABEL_UPPER_BOUNDS = (
+    (Fraction(-3, 2), True), (Fraction(-3, 10), True), (Fraction(3, 10), False), (Fraction(3, 2), False),
+)
 
 
 def score_label(score: Fraction) -> int:
@@ -350,9 +355,23 @@ LOCATION_PREPOSITIONS = ("in", "near", "by", "inside", "outside", "behind", "bes
 
 VERB_INTENSIFIERS = ("really", "truly", "thoroughly", "genuinely", "absolutely")
 ADJ_INTENSIFIERS = ("very", "really", "truly", "so", "remarkably", "extremely", "incredibly")
-ATTRIBUTIVE_INTENSIFIERS = ("very", "really", "truly", "remarkably", "extremely", "incredibly")  # "the very ..."
+# before a noun ("the very helpful guide"): no "so"
+ATTRIBUTIVE_INTENSIFIERS = ("very", "really", "truly", "remarkably", "extremely", "incredibly")
 ADJ_DIMINISHERS = ("slightly", "somewhat", "mildly", "fairly", "rather")
 NOUN_INTENSIFIERS = ("real", "total", "absolute")
+
+
+def below(rng: random.Random, n: int) -> int:
+    """Uniform integer in [0, n) by rejection from ``getrandbits`` (n <= 2**32).
+
+    Written out rather than taken from ``randrange`` so the stream cannot change
+    with the Python version.
+    """
+    bits = n.bit_length()
+    while True:
+        r = rng.getrandbits(bits)
+        if r < n:
+            return r
 
 
 class WordPool:
@@ -370,11 +389,11 @@ class WordPool:
 
     def draw(self, rng: random.Random, rare_turns: dict | None) -> str:
         """rare_turns: None (train: common words only) or {pool: how many rare words it gave}."""
-        if rare_turns is not None and self.rare and rng.randrange(100) < RARE_PERCENT:
+        if rare_turns is not None and self.rare and below(rng, 100) < RARE_PERCENT:
             turn = rare_turns.get(self, 0)
             rare_turns[self] = turn + 1
             return self.rare[turn % len(self.rare)]
-        r = rng.randrange(self.cumulative[-1])
+        r = below(rng, self.cumulative[-1])
         for i, c in enumerate(self.cumulative):
             if r < c:
                 return self.common[i]
@@ -409,7 +428,6 @@ WORTH_POOL = _pool(WORTH_OBJECTS)
 DAY_POOL, SEASON_POOL, WEATHER_POOL = _pool(DAYS), _pool(SEASONS), _pool(WEATHER)
 SENTENCE_ADVERB_POOLS = _sign_pools(SENTENCE_ADVERBS)
 
-THING_KINDS = ("place", "amenity", "food", "shop", "plant", "event", "outing", "price")
 # (kind, weight) for the subject of a "thing" clause
 SUBJECT_KIND_WEIGHTS = (("place", 26), ("amenity", 18), ("food", 12), ("shop", 7), ("plant", 14),
                         ("event", 12), ("outing", 9), ("price", 5))
@@ -418,9 +436,9 @@ SUBJECT_KIND_WEIGHTS = (("place", 26), ("amenity", 18), ("food", 12), ("shop", 7
 def _check_rare_entries_bring_new_tokens() -> None:
     """Every rare entry must hold a token no common list holds (a word train never sees)."""
     common_tokens: dict[str, None] = {}
-    pairs = (*NOUNS.values(), *ADJECTIVES.values(), *NEUTRAL_ACTIONS.values(), GUIDE_NAMES, PEOPLE, PERSON_VERBS, THING_VERBS,
-             STAFF_VERBS, STAFF_INTRANSITIVE, POLAR_NOUNS, WORTH_OBJECTS, DAYS, SEASONS, WEATHER,
-             SENTENCE_ADVERBS)
+    pairs = (*NOUNS.values(), *ADJECTIVES.values(), *NEUTRAL_ACTIONS.values(), GUIDE_NAMES, PEOPLE,
+             PERSON_VERBS, THING_VERBS, STAFF_VERBS, STAFF_INTRANSITIVE, POLAR_NOUNS, WORTH_OBJECTS, DAYS,
+             SEASONS, WEATHER, SENTENCE_ADVERBS)
     for common, _ in pairs:
         for entry in _entries(common):
             for token in entry.replace("/", " ").split():
@@ -468,16 +486,8 @@ def leaves(node) -> list[str]:
     return out
 
 
-def phrase_score(node) -> Fraction:
-    """Sentiment score of a phrase by the composition rules of the module docstring."""
-    if isinstance(node, str):
-        return word_score(node)
-    left, right = node
-    s_left, s_right = phrase_score(left), phrase_score(right)
-    return compose(left, right, s_left, s_right)
-
-
 def compose(left, right, s_left: Fraction, s_right: Fraction) -> Fraction:
+    """Score of the node (left right) from its children's scores (rules in the module docstring)."""
     if isinstance(left, str):
         if left in NEGATORS:
             return NEGATORS[left] * s_right
@@ -501,6 +511,8 @@ def is_contrast_phrase(node) -> bool:
 def render(node) -> tuple[str, Fraction]:
     """Bracketed text of a labelled tree and the score of its root."""
     if isinstance(node, str):
+        if not node or any(c in node for c in " ()"):
+            raise ValueError(f"leaf {node!r} must be one token without brackets")
         score = word_score(node)
         return f"({score_label(score)} {node})", score
     left, right = node
@@ -525,15 +537,15 @@ class CardWriter:
 
     # -- random helpers -----------------------------------------------------
     def chance(self, percent: int) -> bool:
-        return self.rng.randrange(100) < percent
+        return below(self.rng, 100) < percent
 
     def one_of(self, options: tuple):
-        return options[self.rng.randrange(len(options))]
+        return options[below(self.rng, len(options))]
 
     def weighted(self, options: tuple):
         """options: ((value, integer weight), ...)."""
         total = sum(w for _, w in options)
-        r = self.rng.randrange(total)
+        r = below(self.rng, total)
         for value, w in options:
             if r < w:
                 return value
@@ -561,10 +573,10 @@ class CardWriter:
             number = "pl" if has_pl and (not has_sg or self.chance(45)) else "sg"
         return compound(self.draw_from(NOUN_POOLS[(kind, number)])), number
 
-    def adjective_phrase(self, kind: str, target: int, allow_negation: bool = True):
-        """[negator | intensifier | diminisher] adjective."""
+    def adjective_phrase(self, kind: str, target: int):
+        """[intensifier | diminisher] adjective of the wanted polarity sign."""
         adj = self.signed(ADJ_POOLS[kind], target)
-        roll = self.rng.randrange(100)
+        roll = below(self.rng, 100)
         if roll < 22:
             return (self.one_of(ADJ_INTENSIFIERS), adj)
         if roll < 30 and target != 0:
@@ -572,7 +584,7 @@ class CardWriter:
         return adj
 
     def thing_np(self, kind: str, target: int = 0, with_adjective: int = 25, det: str = "the"):
-        """det [adjective] noun [pp]; returns (node, number)."""
+        """det [[intensifier] adjective] noun; returns (node, "sg" or "pl")."""
         noun, number = self.noun(kind)
         if kind == "staff" and self.chance(40):
             det = "our"
@@ -594,13 +606,13 @@ class CardWriter:
         return (self.one_of(LOCATION_PREPOSITIONS), np)
 
     def time_pp(self):
-        form = self.rng.randrange(5)
+        form = below(self.rng, 5)
         if form == 0:
-            return ("on", self.draw_from(DAY_POOL))
+            return ("on", compound(self.draw_from(DAY_POOL)))
         if form == 1:
-            return ("on", ("a", (self.draw_from(WEATHER_POOL), self.draw_from(DAY_POOL))))
+            return ("on", ("a", (self.draw_from(WEATHER_POOL), compound(self.draw_from(DAY_POOL)))))
         if form == 2:
-            return ("in", self.draw_from(SEASON_POOL))
+            return ("in", compound(self.draw_from(SEASON_POOL)))
         if form == 3:
             return ("in", ("the", self.one_of(("morning", "afternoon", "evening"))))
         return ("after", self.one_of(("lunch", ("the", "rain"), ("the", "tour"))))
@@ -671,14 +683,14 @@ class CardWriter:
                               ("amenity", 8), ("outing", 10)))
         obj, _ = self.thing_np(kind, target=sign(word_score(past)) if self.chance(50) else 0,
                                with_adjective=25)
-        roll = self.rng.randrange(100)
+        roll = below(self.rng, 100)
         if roll < 14:  # did not / did never ... enjoy
             vp = ("did", (self.weighted((("not", 5), ("never", 1))), (base, obj)))
         elif roll < 20:
             vp = (self.weighted((("never", 3), ("hardly", 1), ("barely", 1))), (past, obj))
-        elif roll < 36 and target != 0:
+        elif roll < 36:
             vp = (self.one_of(VERB_INTENSIFIERS), (past, obj))
-        elif roll < 41 and target != 0:
+        elif roll < 41:
             vp = (self.one_of(("somewhat", "mildly", "rather")), (past, obj))
         else:
             vp = (past, obj)
@@ -690,7 +702,7 @@ class CardWriter:
         kind = self.weighted(SUBJECT_KIND_WEIGHTS)
         subject, number = self.thing_np(kind, with_adjective=15)
         obj = self.one_of(("us", "me", ("the", "children"), ("my", "kids"), "everyone", ("my", "mother")))
-        roll = self.rng.randrange(100)
+        roll = below(self.rng, 100)
         if roll < 15:
             vp = ("did", ("not", (base, obj)))
         elif roll < 30 and target != 0:
@@ -710,7 +722,7 @@ class CardWriter:
         else:
             past, base = self.signed(STAFF_INTRANSITIVE_POOLS, target).split("/")
             core_past, core_base = past, base
-        roll = self.rng.randrange(100)
+        roll = below(self.rng, 100)
         if roll < 14:
             vp = ("did", ("not", core_base))
         elif roll < 20:
@@ -728,7 +740,8 @@ class CardWriter:
             obj, _ = self.thing_np(kind, with_adjective=15)
             core = ("recommend", obj)
             if self.chance(20):
-                core = (core, ("to", self.one_of(("everyone", "anyone", ("our", "friends"), ("other", "families")))))
+                audience = self.one_of(("everyone", "anyone", ("our", "friends"), ("other", "families")))
+                core = (core, ("to", audience))
         else:
             core = "return"
             modal = self.one_of(("will", "would", "shall"))
@@ -750,7 +763,8 @@ class CardWriter:
 
     def clause_neutral_fact(self, target: int):
         """We visited the X on a rainy tuesday."""
-        kind = self.weighted((("place", 8), ("plant", 4), ("event", 2), ("food", 2), ("shop", 1), ("amenity", 1)))
+        kind = self.weighted((("place", 8), ("plant", 4), ("event", 2), ("food", 2), ("shop", 1),
+                              ("amenity", 1)))
         verb = self.draw_from(NEUTRAL_ACTION_POOLS[kind]).split()
         obj, _ = self.thing_np(kind, with_adjective=20)
         if len(verb) == 1:
@@ -814,12 +828,12 @@ class CardWriter:
                     intro = self.one_of((("on", ("our", ("first", "visit"))), ("this", "time"),
                                          ("last", "weekend"), ("on", ("the", "whole"))))
                 body = ((intro, ","), body)
-        end = self.weighted((((".",), 78), (("!",), 16), ((), 6)))
-        return (body, end[0]) if end else body
+        end = self.weighted(((".", 78), ("!", 16), (None, 6)))
+        return (body, end) if end else body
 
 
-def generate_splits(seed: int) -> list[tuple[str, list[str]]]:
-    """All three splits as lists of bracketed lines; sentences never repeat across splits."""
+def generate_splits(seed: int) -> list[tuple[str, list[str], list[int]]]:
+    """(file name, bracketed lines, words per line) for each split; no sentence repeats."""
     rng = random.Random(seed)
     seen: set[str] = set()  # membership only, never iterated
     out = []
@@ -827,6 +841,7 @@ def generate_splits(seed: int) -> list[tuple[str, list[str]]]:
     for name, count, allow_rare in SPLITS:
         writer.allow_rare = allow_rare
         lines: list[str] = []
+        lengths: list[int] = []
         while len(lines) < count:
             tree = writer.sentence()
             words = leaves(tree)
@@ -837,7 +852,8 @@ def generate_splits(seed: int) -> list[tuple[str, list[str]]]:
                 continue
             seen.add(text)
             lines.append(render(tree)[0])
-        out.append((name, lines))
+            lengths.append(len(words))
+        out.append((name, lines, lengths))
     return out
 
 
@@ -847,28 +863,16 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--seed", type=int, default=DEFAULT_SEED, help="seed of the sentence generator")
     args = parser.parse_args(argv)
     args.out_dir.mkdir(parents=True, exist_ok=True)
-    for name, lines in generate_splits(args.seed):
+    for name, lines, lengths in generate_splits(args.seed):
         path = args.out_dir / name
         data = "".join(line + "\n" for line in lines).encode("utf-8")
         path.write_bytes(data)
         roots = [0] * 5
         for line in lines:
             roots[int(line[1])] += 1
-        n_words = sum(len(_leaf_words(line)) for line in lines)
         shares = " ".join(f"{k}:{100 * c / len(lines):.1f}%" for k, c in enumerate(roots))
-        print(f"{path}: {len(lines)} trees, {len(data)} bytes, mean {n_words / len(lines):.2f} words, "
+        print(f"{path}: {len(lines)} trees, {len(data)} bytes, mean {sum(lengths) / len(lines):.2f} words, "
               f"root labels {shares}")
-
-
-def _leaf_words(line: str) -> list[str]:
-    """Words of one bracketed line: each '(label word)' with no inner bracket."""
-    words = []
-    for chunk in line.split("(")[1:]:
-        if ")" in chunk:
-            label_word = chunk.split(")")[0].split()
-            if len(label_word) == 2:
-                words.append(label_word[1])
-    return words
 
 
 if __name__ == "__main__":

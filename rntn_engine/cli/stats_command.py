@@ -71,23 +71,25 @@ def stats(
     A progress bar appears on stderr when it is a terminal.
     """
     accumulators = [StatsAccumulator(num_classes) for _ in treebanks]
-    total = StatsAccumulator(num_classes)
+    several = len(treebanks) > 1
+    total = StatsAccumulator(num_classes) if several else accumulators[0]
     show_progress = sys.stderr.isatty()
     for path, accumulator in zip(treebanks, accumulators):
+        sinks = (accumulator, total) if several else (accumulator,)
         with tqdm(desc=path.name, unit=" lines", disable=not show_progress, leave=False, file=sys.stderr) as bar:
             for tree in iter_trees(path, num_classes=num_classes, binarise=binarise.value, progress=bar.update):
-                accumulator.add(tree)
-                total.add(tree)
+                for sink in sinks:
+                    sink.add(tree)
     per_file = [(str(path), accumulator.result()) for path, accumulator in zip(treebanks, accumulators)]
     if json_output:
         report = {
             "files": [{"path": path, **result.as_dict()} for path, result in per_file],
-            "total": total.result().as_dict(),
+            "total": total.result().as_dict(),  # the single file's numbers when there is one file
         }
         typer.echo(json.dumps(report, indent=2))
         return
     sections = [render_stats(f"treebank {path}", result) for path, result in per_file]
-    if len(per_file) > 1:
+    if several:
         sections.append(render_stats(f"total of {len(per_file)} files", total.result()))
     typer.echo("\n\n".join(sections))
 

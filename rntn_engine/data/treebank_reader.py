@@ -330,7 +330,7 @@ def _parse_line(text: str, path: str, line_no: int, labels: _LabelReader, mode: 
                         "(binarise 'right' or 'left' collapses unary chains)",
                     )
                 node = kids[0]
-                if value != UNLABELLED:
+                if label[node] == UNLABELLED:
                     label[node] = value
             elif n_kids == 0:
                 raise _error(text, path, line_no, i, "empty node: expected a word or child nodes after the label, found ')'")
