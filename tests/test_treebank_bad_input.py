@@ -100,3 +100,11 @@ def test_an_error_message_shows_unprintable_characters_escaped():
         parse_tree("(2 a\u2028b c)")
     assert "'a\\u2028b'" in str(caught.value)
     assert str(caught.value).isprintable()
+
+
+def test_ten_thousand_unclosed_nodes_are_reported_not_recursed():
+    text = "(1 " * 10_000 + "a"
+    with pytest.raises(TreebankError) as caught:
+        parse_tree(text)
+    assert str(caught.value).startswith(f"<string>:1:{len(text) + 1}: expected ')' to close the node opened at column ")
+    assert "(10000 node(s) still open)" in str(caught.value)

@@ -268,4 +268,4 @@ def test_bad_options_are_programming_errors(kwargs, treebank_file):
     with pytest.raises(ValueError):
         parse_tree("(1 a)", **kwargs)
     with pytest.raises(ValueError):
-        read_trees(treebank_file("(1 a)\n"), **kwargs)
+        iter_trees(treebank_file("(1 a)\n"), **kwargs)  # at the call, before any reading

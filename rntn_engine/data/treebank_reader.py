@@ -120,11 +120,28 @@ def iter_trees(
     previous call (every :data:`PROGRESS_EVERY` lines and at the end). Raises
     TreebankError at the first bad line, or at the end if the file held no tree.
     """
-    mode = _check_options(num_classes, binarise)
-    name = os.fspath(path)
-    labels = _LabelReader(num_classes)
+    mode = _check_options(num_classes, binarise)  # now, not at the first next()
+    return _iter_file(os.fspath(path), _LabelReader(num_classes), mode, progress)
+
+
+def read_trees(
+    path: str | os.PathLike,
+    *,
+    num_classes: int | None = None,
+    binarise: str = "right",
+    progress: Callable[[int], None] | None = None,
+) -> list[Tree]:
+    """All trees of a treebank file (see :func:`iter_trees`); TreebankError if it holds none."""
+    return list(iter_trees(path, num_classes=num_classes, binarise=binarise, progress=progress))
+
+
+# --- checks on whole lines and files -------------------------------------------------------------
+
+
+def _iter_file(name: str, labels: _LabelReader, mode: str, progress: Callable[[int], None] | None) -> Iterator[Tree]:
+    """The generator behind :func:`iter_trees`: bytes line by line, decoded, checked and parsed."""
     try:
-        with open(path, "rb") as f:
+        with open(name, "rb") as f:
             _check_signature(name, f.peek(16)[:16])
             line_no = 0
             offset = 0  # bytes of the file before this line
@@ -161,20 +178,6 @@ def iter_trees(
         raise TreebankError(name, f"{what}: expected one bracketed tree per line", 1, 1)
 
 
-def read_trees(
-    path: str | os.PathLike,
-    *,
-    num_classes: int | None = None,
-    binarise: str = "right",
-    progress: Callable[[int], None] | None = None,
-) -> list[Tree]:
-    """All trees of a treebank file (see :func:`iter_trees`); TreebankError if it holds none."""
-    return list(iter_trees(path, num_classes=num_classes, binarise=binarise, progress=progress))
-
-
-# --- checks on whole lines and files -------------------------------------------------------------
-
-
 def _check_options(num_classes: int | None, binarise: str) -> str:
     if binarise not in BINARISE_MODES:
         raise ValueError(f"binarise must be one of {BINARISE_MODES}, not {binarise!r}")
@@ -194,9 +197,8 @@ def _decode_line(raw: bytes, name: str, line_no: int, offset: int) -> str:
     nul = raw.find(b"\x00")
     if nul >= 0:
         column = len(raw[:nul].decode("utf-8", "replace")) + 1
-        raise TreebankError(
-            name, f"binary or compressed file: NUL byte at byte {offset + nul} of the file; {_EXPECT_TEXT}", line_no, column
-        )
+        message = f"binary or compressed file: NUL byte at byte {offset + nul} of the file; {_EXPECT_TEXT}"
+        raise TreebankError(name, message, line_no, column)
     try:
         return raw.decode("utf-8")
     except UnicodeDecodeError as exc:
@@ -285,7 +287,9 @@ def _parse_line(text: str, path: str, line_no: int, labels: _LabelReader, mode: 
                     kids[0] = len(label) - 1
                     kids.pop()
             elif root >= 0:
-                raise _error(text, path, line_no, i, "a second tree starts on the same line: expected one tree per line")
+                raise _error(
+                    text, path, line_no, i, "a second tree starts on the same line: expected one tree per line"
+                )
             if i + 1 == n_tokens:
                 raise _error(text, path, line_no, i + 1, f"{labels.expected}; found end of line")
             label_token = tokens[i + 1]
@@ -330,10 +334,12 @@ def _parse_line(text: str, path: str, line_no: int, labels: _LabelReader, mode: 
                         "(binarise 'right' or 'left' collapses unary chains)",
                     )
                 node = kids[0]
-                if label[node] == UNLABELLED:
+                if value != UNLABELLED:
                     label[node] = value
             elif n_kids == 0:
-                raise _error(text, path, line_no, i, "empty node: expected a word or child nodes after the label, found ')'")
+                raise _error(
+                    text, path, line_no, i, "empty node: expected a word or child nodes after the label, found ')'"
+                )
             else:  # right factoring: (l a b c d) -> (l a (_ b (_ c d)))
                 node = kids[-1]
                 for kid in kids[-2:0:-1]:
@@ -421,7 +427,10 @@ def _node_after_word(text: str, path: str, line_no: int, i: int) -> TreebankErro
 
 def _word_after_node(text: str, path: str, line_no: int, i: int) -> TreebankError:
     word = _TOKEN_RE.findall(text)[i]
-    message = f"expected '(' or ')' after a child node, found the word {_quote(word)}: a node holds either one word or child nodes"
+    message = (
+        f"expected '(' or ')' after a child node, found the word {_quote(word)}: "
+        "a node holds either one word or child nodes"
+    )
     if _glued(text, i):
         message += " (a ')' inside a word is written -RRB-)"
     return _error(text, path, line_no, i, message)

@@ -37,9 +37,9 @@ class TrainConfig:
     model: str = "rntn"  # (shape) "rnn" or "rntn"
     dim: int = 25  # (shape) d, size of word and phrase vectors
     num_classes: int = 5  # (shape) C; labels are 0..C-1
-    epochs: int = 10  # passes over the training trees
+    epochs: int = 20  # passes over the training trees
     batch_size: int = 27  # trees per minibatch (25-30 is common practice)
-    lr: float = 0.05  # (result) AdaGrad learning rate
+    lr: float = 0.01  # (result) AdaGrad learning rate
     adagrad_eps: float = 1e-6  # (result) AdaGrad epsilon in lr * g / (sqrt(G) + eps)
     adagrad_reset_epochs: int = 0  # (result) forget AdaGrad sums every this many epochs (0 = never)
     l2_words: float = 1e-4  # (result) L2 strength on word vectors L

@@ -95,10 +95,7 @@ def train(config: TrainConfig, echo: Callable[[str], None] = print, show_progres
          f"vocabulary {len(data.vocabulary)} words, {shape.count():,} parameters "
          f"({shape.training_bytes() / 2**20:.1f} MiB with gradient and AdaGrad state)")
     if data.dev is not None:
-        base = majority_class(bank.label)
-        echo(f"dev majority-class baseline (class {base}): "
-             f"all nodes {accuracy(data.dev.label, np.full_like(data.dev.label, base)):.4f}, "
-             f"roots {accuracy(data.dev.label[data.dev.start[1:] - 1], np.full(data.dev.n_trees, base)):.4f}")
+        echo(majority_baseline_line(bank, data.dev))
 
     # --- model and optimiser ------------------------------------------------------------------------
     params = init_parameters(shape, np.random.default_rng(config.seed))
@@ -156,6 +153,16 @@ def train(config: TrainConfig, echo: Callable[[str], None] = print, show_progres
     save_checkpoint(run_dir / MODEL_FILE, params, data.vocabulary, config, optimiser, state, history, data.hashes)
     echo(f"saved {run_dir / MODEL_FILE}")
     return TrainResult(params, data.vocabulary, history, run_dir)
+
+
+def majority_baseline_line(train: EncodedTreebank, dev: EncodedTreebank) -> str:
+    """Dev accuracy of always predicting the training majority class (of all nodes; of roots)."""
+    train_roots, dev_roots = train.label[train.start[1:] - 1], dev.label[dev.start[1:] - 1]
+    node_class, root_class = majority_class(train.label), majority_class(train_roots)
+    all_nodes = accuracy(dev.label, np.full_like(dev.label, node_class))
+    roots = accuracy(dev_roots, np.full_like(dev_roots, root_class))
+    return (f"dev majority-class baseline: all nodes {all_nodes:.4f} (class {node_class}), "
+            f"roots {roots:.4f} (class {root_class})")
 
 
 def format_epoch_line(record: dict, seconds: float) -> str:
