@@ -94,3 +94,25 @@ def test_gradient_matches_autograd_library(model, seed):
             continue
         err = group_relative_error(grads[name], ref)
         assert err < 1e-9, f"{model} {name}: relative error {err:.2e}"
+
+
+@pytest.mark.parametrize("model", ["rnn", "rntn"])
+def test_float32_gradient_matches_autograd_in_float64(model):
+    # float32 kernels against the same independent autograd (HIPS) objective evaluated in float64
+    # on the same (float32-representable) parameters: agreement to float32 precision.
+    params, bank, chunks, _, _ = engine_case(model, "float32", dim=3, seed=1, param_scale=2.0)
+    objective = TreeModelObjective(params, L2)
+    grads = params.zeros_like()
+    loss = objective.loss_and_gradient(params, grads, chunks)
+    use_tensor = model == "rntn"
+    as64 = lambda a: np.asarray(a, dtype=np.float64)
+    V = as64(params.V) if use_tensor else np.zeros((1, 1, 1))
+    theta = (as64(params.L), as64(params.W), as64(params.b), V, as64(params.Ws), as64(params.bs))
+    tree_arrays = (bank.word, bank.left, bank.right, bank.label, bank.start)
+    ref_loss = autograd_objective(theta, tree_arrays, bank.n_trees, L2, use_tensor)
+    ref_grads = autograd.grad(autograd_objective)(theta, tree_arrays, bank.n_trees, L2, use_tensor)
+    assert abs(loss - ref_loss) / abs(ref_loss) < 1e-5
+    for name, ref in zip(["L", "W", "b", "V", "Ws", "bs"], ref_grads):
+        if name == "V" and not use_tensor:
+            continue
+        assert group_relative_error(grads[name].astype(np.float64), ref) < 1e-4, name
