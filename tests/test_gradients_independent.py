@@ -73,25 +73,31 @@ def autograd_objective(theta, tree_arrays, num_trees, l2, use_tensor):
     return total / num_trees + reg
 
 
+def autograd_reference(params, bank, use_tensor):
+    """(loss, {name: gradient}) from autograd (HIPS), in float64, on copies of our parameters."""
+    as64 = lambda a: np.array(a, dtype=np.float64)
+    V = as64(params.V) if use_tensor else np.zeros((1, 1, 1))
+    theta = (as64(params.L), as64(params.W), as64(params.b), V, as64(params.Ws), as64(params.bs))
+    tree_arrays = (bank.word, bank.left, bank.right, bank.label, bank.start)
+    loss = autograd_objective(theta, tree_arrays, bank.n_trees, L2, use_tensor)
+    grads = autograd.grad(autograd_objective)(theta, tree_arrays, bank.n_trees, L2, use_tensor)
+    named = dict(zip(["L", "W", "b", "V", "Ws", "bs"], grads))
+    if not use_tensor:
+        del named["V"]
+    return loss, named
+
+
 @pytest.mark.parametrize("model", ["rnn", "rntn"])
 @pytest.mark.parametrize("seed", [0, 5])
 def test_gradient_matches_autograd_library(model, seed):
     params, bank, chunks, _, _ = engine_case(model, "float64", dim=3, seed=seed, param_scale=2.0)
-    objective = TreeModelObjective(params, L2)
     grads = params.zeros_like()
-    loss = objective.loss_and_gradient(params, grads, chunks)
-
-    use_tensor = model == "rntn"
-    V = params.V.copy() if use_tensor else np.zeros((1, 1, 1))
-    theta = (params.L.copy(), params.W.copy(), params.b.copy(), V, params.Ws.copy(), params.bs.copy())
-    # Independent reference: autograd (HIPS) differentiates the equations above.
-    tree_arrays = (bank.word, bank.left, bank.right, bank.label, bank.start)
-    ref_loss = autograd_objective(theta, tree_arrays, bank.n_trees, L2, use_tensor)
-    ref_grads = autograd.grad(autograd_objective)(theta, tree_arrays, bank.n_trees, L2, use_tensor)
+    loss = TreeModelObjective(params, L2).loss_and_gradient(params, grads, chunks)
+    # Independent reference: autograd (HIPS) differentiates the equations written above.
+    ref_loss, ref_grads = autograd_reference(params, bank, model == "rntn")
     assert abs(loss - ref_loss) / abs(ref_loss) < 1e-12
-    for name, ref in zip(["L", "W", "b", "V", "Ws", "bs"], ref_grads):
-        if name == "V" and not use_tensor:
-            continue
+    assert set(ref_grads) == set(params.names())
+    for name, ref in ref_grads.items():
         err = group_relative_error(grads[name], ref)
         assert err < 1e-9, f"{model} {name}: relative error {err:.2e}"
 
@@ -101,18 +107,9 @@ def test_float32_gradient_matches_autograd_in_float64(model):
     # float32 kernels against the same independent autograd (HIPS) objective evaluated in float64
     # on the same (float32-representable) parameters: agreement to float32 precision.
     params, bank, chunks, _, _ = engine_case(model, "float32", dim=3, seed=1, param_scale=2.0)
-    objective = TreeModelObjective(params, L2)
     grads = params.zeros_like()
-    loss = objective.loss_and_gradient(params, grads, chunks)
-    use_tensor = model == "rntn"
-    as64 = lambda a: np.asarray(a, dtype=np.float64)
-    V = as64(params.V) if use_tensor else np.zeros((1, 1, 1))
-    theta = (as64(params.L), as64(params.W), as64(params.b), V, as64(params.Ws), as64(params.bs))
-    tree_arrays = (bank.word, bank.left, bank.right, bank.label, bank.start)
-    ref_loss = autograd_objective(theta, tree_arrays, bank.n_trees, L2, use_tensor)
-    ref_grads = autograd.grad(autograd_objective)(theta, tree_arrays, bank.n_trees, L2, use_tensor)
+    loss = TreeModelObjective(params, L2).loss_and_gradient(params, grads, chunks)
+    ref_loss, ref_grads = autograd_reference(params, bank, model == "rntn")
     assert abs(loss - ref_loss) / abs(ref_loss) < 1e-5
-    for name, ref in zip(["L", "W", "b", "V", "Ws", "bs"], ref_grads):
-        if name == "V" and not use_tensor:
-            continue
+    for name, ref in ref_grads.items():
         assert group_relative_error(grads[name].astype(np.float64), ref) < 1e-4, name
