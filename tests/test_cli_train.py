@@ -87,7 +87,8 @@ def test_diverging_loss_stops_with_a_clear_error(small_treebanks, tmp_path, caps
     code = main(["train", "--train-file", str(train), "--dim", "4", "--epochs", "3", "--lr", "1e30",
                  "--run-dir", str(tmp_path / "r"), "--no-progress"])
     err = capsys.readouterr().err
-    assert code == 1 and "lower --lr" in err
+    assert code == 1 and "Lower --lr" in err and "last good checkpoint is untouched" in err
+    assert load_checkpoint(tmp_path / "r" / "checkpoint-step000000000.h5").state["step"] == 0
 
 
 def test_rntn_beats_the_majority_baseline_on_the_demo_treebank(tmp_path, capsys):

@@ -4,6 +4,7 @@ Exit codes (documented in README):
     0  success
     1  bad input or failed check (one line on stderr: FILE:LINE:COL: what was expected)
     2  bad usage (unknown option, missing argument, invalid value)
+    75 training stopped cleanly by a signal or --time-limit, with a checkpoint: resumable
     130 interrupted by the user before anything resumable existed
 """
 
@@ -23,7 +24,7 @@ from rntn_engine import __version__
 from rntn_engine.cli.app_exit import EXIT_BAD_INPUT, EXIT_INTERRUPTED, EXIT_OK, EXIT_USAGE
 from rntn_engine.data.errors import InputError
 from rntn_engine.run.run_config import ConfigError
-from rntn_engine.run.run_errors import TrainingError
+from rntn_engine.run.run_errors import RunDirectoryError, TrainingError
 
 app = typer.Typer(
     name="rntn",
@@ -56,9 +57,10 @@ def _register_commands() -> None:
     from rntn_engine.cli import stats_command
 
     app.command("stats")(stats_command.stats)
-    from rntn_engine.cli import gradcheck_command, train_command
+    from rntn_engine.cli import gradcheck_command, resume_command, train_command
 
     app.command("train")(train_command.train)
+    app.command("resume")(resume_command.resume)
     app.command("gradcheck")(gradcheck_command.gradcheck)
 
 
@@ -82,7 +84,7 @@ def main(argv: list[str] | None = None) -> int:
     except ConfigError as exc:
         typer.echo(f"rntn: error: {exc}", err=True)
         return EXIT_USAGE
-    except (InputError, TrainingError) as exc:
+    except (InputError, TrainingError, RunDirectoryError) as exc:
         typer.echo(str(exc), err=True)
         return EXIT_BAD_INPUT
     except typer.Exit as exc:

@@ -35,12 +35,23 @@ def train(
     threads: Annotated[Optional[int], typer.Option("--threads", help="Threads that run minibatch chunks; results do not depend on it. [default: 1]")] = None,
     grad_chunks: Annotated[Optional[int], typer.Option("--grad-chunks", help=f"Fixed number of pieces each minibatch is split into; parallelism up to this many threads. [default: {_D.grad_chunks}]")] = None,
     run_dir: Annotated[Optional[Path], typer.Option("--run-dir", help="Output directory. [default: checkpoints/<model>-d<dim>-seed<seed>]")] = None,
+    checkpoint_every_steps: Annotated[Optional[int], typer.Option("--checkpoint-every-steps", help="Also checkpoint every N steps (0: off). [default: 0]")] = None,
+    checkpoint_every_minutes: Annotated[Optional[float], typer.Option("--checkpoint-every-minutes", help=f"Also checkpoint when this many minutes passed since the last one (0: off). [default: {_D.checkpoint_every_minutes}]")] = None,
+    keep_checkpoints: Annotated[Optional[int], typer.Option("--keep-checkpoints", help=f"Newest checkpoints kept; the best one is kept as well. [default: {_D.keep_checkpoints}]")] = None,
+    best_metric: Annotated[Optional[str], typer.Option("--best-metric", help=f"Dev score that picks the best checkpoint: dev_fine_root or dev_fine_all. [default: {_D.best_metric}]")] = None,
+    patience: Annotated[Optional[int], typer.Option("--patience", help="Stop after N evaluations without a better --best-metric (0: never). [default: 0]")] = None,
+    time_limit: Annotated[Optional[str], typer.Option("--time-limit", help="Stop cleanly with a checkpoint after this much wall time, e.g. 23h, 90m, 1h30m (exit code 75, resumable).")] = None,
     config_file: Annotated[Optional[Path], typer.Option("--config", help="TOML file with any of these settings (flags override it).")] = None,
     print_config: Annotated[bool, typer.Option("--print-config", help="Print the resolved configuration as TOML and exit.")] = False,
     progress: Annotated[Optional[bool], typer.Option("--progress/--no-progress", help="Progress bar. [default: only on a terminal]")] = None,
 ) -> None:
-    """Train an RNN or RNTN on a phrase-labelled treebank; print per-epoch loss and dev accuracy."""
-    from rntn_engine.run.trainer import train as run_training
+    """Train an RNN or RNTN on a phrase-labelled treebank in a new run directory.
+
+    Prints per-epoch loss and dev accuracy; checkpoints by time, steps and epoch. SIGTERM,
+    SIGINT or --time-limit stop it at the next minibatch with a checkpoint and exit code 75;
+    `rntn resume RUN_DIR` continues exactly where it stopped.
+    """
+    from rntn_engine.run.trainer import start_training
 
     config = TrainConfig()
     if config_file is not None:
@@ -51,7 +62,9 @@ def train(
         "l2_tensor": l2_tensor, "l2_classifier": l2_classifier, "adagrad_eps": adagrad_eps,
         "adagrad_reset_epochs": adagrad_reset_epochs, "min_count": min_count, "lowercase": lowercase,
         "binarise": binarise, "seed": seed, "dtype": dtype, "threads": threads, "grad_chunks": grad_chunks,
-        "run_dir": run_dir,
+        "run_dir": run_dir, "checkpoint_every_steps": checkpoint_every_steps,
+        "checkpoint_every_minutes": checkpoint_every_minutes, "keep_checkpoints": keep_checkpoints,
+        "best_metric": best_metric, "patience": patience, "time_limit": time_limit,
     }
     given = {k: (str(v) if isinstance(v, Path) else v) for k, v in flags.items() if v is not None}
     config = config_from_mapping(given, config)
@@ -59,4 +72,6 @@ def train(
         typer.echo(config.to_toml(), nl=False)
         return
     config.validate()
-    run_training(config, echo=typer.echo, show_progress=progress)
+    code = start_training(config, echo=typer.echo, show_progress=progress)
+    if code:
+        raise typer.Exit(code)

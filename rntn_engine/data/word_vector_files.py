@@ -221,51 +221,56 @@ def _error_at_start(path: str, binary: bool, message: str) -> VectorFileError:
 class RowKeeper:
     """Decides which rows to keep (first occurrence wins) and gathers their vectors.
 
-    ``keys`` is the set of words to keep, or None to keep every row. Words seen a
-    second time are counted in ``duplicates`` and skipped; only kept words are
-    remembered, so duplicates of words that were not asked for go uncounted.
+    ``keys`` is the set of words to keep, or None to keep every row. A kept word
+    seen again is counted in ``duplicates`` and skipped; only kept words are
+    remembered, so repeats of words nobody asked for go uncounted.
+    ``place`` says how readers locate rows: "line" (text) or "byte" (binary).
     """
 
-    def __init__(self, path: str, keys: set[str] | None, max_bytes: int) -> None:
+    def __init__(self, path: str, keys: set[str] | None, max_bytes: int, place: str) -> None:
         self.path = path
         self.keys = keys
         self.max_bytes = max_bytes
-        self.index: dict[str, int] = {}  # kept word -> row of the result
+        self.place = place
+        self.index: dict[str, int] = {}  # kept word -> its row in the result
         self.words: list[str] = []
         self.blocks: list[np.ndarray] = []  # (n, d) float32 pieces, in file order
         self.duplicates = 0
-        self.first_duplicate: str | None = None  # "'word' at <place>" for the warning
+        self.first_duplicate: str | None = None  # "'word' at line 7" for the warning
 
-    def wants(self, word: str, place: str) -> bool:
-        """True if this row's vector should be kept; ``place`` describes the row for the duplicate warning."""
+    def wants(self, word: str, where: int) -> bool:
+        """True if the row of ``word`` (at line or byte ``where``) is to be kept."""
+        if self.keys is not None and word not in self.keys:
+            return False
         if word in self.index:
             self.duplicates += 1
             if self.first_duplicate is None:
-                self.first_duplicate = f"{word!r} at {place}"
-            return False
-        if self.keys is not None and word not in self.keys:
+                self.first_duplicate = f"{word!r} at {self.place} {where}"
             return False
         self.index[word] = len(self.words)
         self.words.append(word)
         return True
 
-    def check_room(self, dim: int, line: int | None = None, byte_offset: int | None = None) -> None:
-        """VectorFileError if the rows kept so far exceed ``max_bytes`` as float32."""
-        if len(self.words) * dim * 4 > self.max_bytes:
-            raise VectorFileError(
-                self.path,
-                f"keeping {len(self.words)} vectors of {dim} values needs more than the limit of "
-                f"{self.max_bytes:,} bytes (max_bytes); raise the limit or ask for fewer words",
-                line=line,
-                byte_offset=byte_offset,
-            )
+    def rows_allowed(self, dim: int) -> int:
+        """How many rows of ``dim`` float32 values fit in ``max_bytes``."""
+        return self.max_bytes // (4 * dim)
+
+    def too_many_rows(self, dim: int, line: int | None = None, byte_offset: int | None = None) -> VectorFileError:
+        """The error for a row that would take the kept vectors past ``max_bytes``."""
+        return VectorFileError(
+            self.path,
+            f"keeping more than {self.rows_allowed(dim)} vectors of {dim} values would pass the limit of "
+            f"{self.max_bytes:,} bytes (max_bytes); raise the limit or ask for fewer words",
+            line=line,
+            byte_offset=byte_offset,
+        )
 
     def add(self, vectors: np.ndarray) -> None:
-        """Append the vectors of the rows just accepted by :meth:`wants`, in the same order."""
+        """Append the (n, d) vectors of the last n rows accepted by :meth:`wants`."""
         self.blocks.append(vectors)
 
     def matrix(self, dim: int) -> np.ndarray:
-        """All kept vectors as one (n, d) float32 array."""
+        """All kept vectors as one (n, d) float32 array, in file order."""
         if not self.blocks:
             return np.zeros((0, dim), dtype=np.float32)
         return np.ascontiguousarray(np.concatenate(self.blocks, axis=0), dtype=np.float32)

@@ -26,7 +26,6 @@ import numpy as np
 from rntn_engine import __version__
 from rntn_engine.data.checkpoint_file import CheckpointContent, CheckpointError, read_checkpoint, write_checkpoint
 from rntn_engine.data.vocabulary import Vocabulary
-from rntn_engine.model.adagrad import AdaGrad
 from rntn_engine.model.parameters import ModelShape, Parameters
 from rntn_engine.run.run_config import ConfigError, TrainConfig, config_from_mapping
 
@@ -61,14 +60,14 @@ class Checkpoint:
 
 
 def save_checkpoint(path: Path | str, params: Parameters, vocabulary: Vocabulary, config: TrainConfig,
-                    optimiser: AdaGrad | None = None, state: dict | None = None, metrics: list | None = None,
+                    adagrad_sums: Parameters | None = None, state: dict | None = None, metrics: list | None = None,
                     data_hashes: dict | None = None, fault=None) -> None:
     content = CheckpointContent()
     for name in params.names():
         content.arrays[f"parameters/{name}"] = params[name]
         content.descriptions[f"arrays/parameters/{name}"] = PARAMETER_DESCRIPTIONS[name]
-        if optimiser is not None:
-            content.arrays[f"adagrad_sums/{name}"] = optimiser.sums[name]
+        if adagrad_sums is not None:
+            content.arrays[f"adagrad_sums/{name}"] = adagrad_sums[name]
             content.descriptions[f"arrays/adagrad_sums/{name}"] = f"AdaGrad sum of squared gradients of {name}"
     content.words["vocabulary"] = list(vocabulary.words)
     content.descriptions["words/vocabulary"] = "vocabulary: word of each row of L"

@@ -22,6 +22,14 @@ else:  # pragma: no cover
     import tomli as tomllib
 
 from rntn_engine.model.parameters import DTYPES, MODELS
+from rntn_engine.run.stop_signals import parse_duration
+
+# dev scores a run can select its best checkpoint by (all higher-is-better)
+BEST_METRICS = ("dev_fine_root", "dev_fine_all")
+
+# settings `rntn resume` may change: none of them changes the numbers of the steps already taken
+RESUME_OVERRIDABLE = ("epochs", "time_limit", "threads", "checkpoint_every_steps", "checkpoint_every_minutes",
+                      "keep_checkpoints", "patience")
 
 
 class ConfigError(ValueError):
@@ -54,6 +62,12 @@ class TrainConfig:
     grad_chunks: int = 2  # (result) fixed pieces each minibatch is split into; results do not depend on --threads
     threads: int = 1  # worker threads running chunks; never changes results
     run_dir: str = ""  # output directory ("" = checkpoints/<model>-d<dim>-seed<seed>)
+    checkpoint_every_steps: int = 0  # also checkpoint every this many steps (0 = only by time and epoch)
+    checkpoint_every_minutes: float = 10.0  # also checkpoint when this much wall time passed since the last
+    keep_checkpoints: int = 3  # newest checkpoints kept (the best one is kept in addition)
+    best_metric: str = "dev_fine_root"  # dev score that picks the best checkpoint and drives early stopping
+    patience: int = 0  # stop after this many evaluations without a better best_metric (0 = never)
+    time_limit: str = ""  # wall-clock budget of one invocation, e.g. 23h or 1h30m ("" = none)
 
     def validate(self) -> "TrainConfig":
         def need(ok: bool, message: str) -> None:
@@ -76,6 +90,16 @@ class TrainConfig:
         need(self.dtype in DTYPES, f"--dtype must be one of {', '.join(DTYPES)}, got {self.dtype!r}")
         need(self.grad_chunks >= 1, f"grad_chunks must be at least 1, got {self.grad_chunks}")
         need(self.threads >= 1, f"--threads must be at least 1, got {self.threads}")
+        need(self.checkpoint_every_steps >= 0, "--checkpoint-every-steps must be 0 or more")
+        need(self.checkpoint_every_minutes >= 0, "--checkpoint-every-minutes must be 0 or more")
+        need(self.keep_checkpoints >= 1, "--keep-checkpoints must be at least 1")
+        need(self.best_metric in BEST_METRICS, f"--best-metric must be one of {', '.join(BEST_METRICS)}")
+        need(self.patience >= 0, "--patience must be 0 or more")
+        if self.time_limit:
+            try:
+                parse_duration(self.time_limit)
+            except ValueError as exc:
+                raise ConfigError(f"--time-limit: {exc}") from None
         return self
 
     def resolved_run_dir(self) -> Path:
@@ -98,6 +122,11 @@ class TrainConfig:
                 text = repr(v)
             lines.append(f"{f.name} = {text}")
         return "\n".join(lines) + "\n"
+
+
+def config_differences(a: TrainConfig, b: TrainConfig, ignore: tuple[str, ...] = ()) -> list[str]:
+    """Names of the settings whose values differ between ``a`` and ``b``."""
+    return [f.name for f in fields(TrainConfig) if f.name not in ignore and getattr(a, f.name) != getattr(b, f.name)]
 
 
 def config_from_mapping(values: dict[str, Any], base: TrainConfig | None = None, source: str = "") -> TrainConfig:

@@ -1,16 +1,28 @@
-"""The training loop: one flat loop in commented phases.
+"""The training loop, resumable: one flat loop in commented phases.
 
 Determinism: parameters are initialised from ``seed``; the order of epoch e is a
-permutation drawn from a generator seeded with (seed, e), so any epoch's order can
-be rebuilt from two integers and a run's position is (epoch, position in epoch).
-Minibatches are split into ``grad_chunks`` fixed pieces (model/objective.py), so
-the thread count never changes the numbers.
+permutation drawn from a generator seeded with (seed, e), so any epoch's order is
+rebuilt from two integers and a run's position is (epoch, trees done in the epoch).
+No generator state exists after initialisation, so none has to be saved.
+Minibatches are split into ``grad_chunks`` fixed pieces (model/objective.py), so the
+thread count never changes the numbers.
+
+Everything that decides the future is in the checkpoint (run/checkpoints.py):
+parameters, AdaGrad sums, :class:`RunState` (step, epoch, position, the running sums
+of the epoch's loss, best-checkpoint and early-stopping counters) and the metrics so
+far. A resumed run restores all of it at one point, before the loop, and continues
+bit for bit as if it had never stopped.
+
+Checkpoints are written every ``checkpoint_every_steps`` steps, when
+``checkpoint_every_minutes`` of wall time passed since the last one, at each epoch
+end, and when the run is asked to stop (SIGTERM, SIGINT, ``--time-limit``).
 """
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
-import json
+import os
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -20,20 +32,43 @@ import numpy as np
 from tqdm import tqdm
 
 from rntn_engine.data.batches import EncodedTreebank, encode_treebank
+from rntn_engine.data.checkpoint_file import CheckpointError
 from rntn_engine.data.treebank_reader import read_trees
 from rntn_engine.data.vocabulary import Vocabulary, build_vocabulary
 from rntn_engine.model.adagrad import AdaGrad
 from rntn_engine.model.objective import L2Strengths, TreeModelObjective, split_into_chunks
 from rntn_engine.model.parameters import ModelShape, Parameters, init_parameters
-from rntn_engine.run.checkpoints import save_checkpoint
+from rntn_engine.run.checkpoints import Checkpoint, load_checkpoint, save_checkpoint
 from rntn_engine.run.evaluation import predict_treebank
-from rntn_engine.run.run_config import TrainConfig
-from rntn_engine.run.run_errors import TrainingError
+from rntn_engine.run.fault_injection import fault_from_environment
+from rntn_engine.run.run_config import (
+    RESUME_OVERRIDABLE,
+    TrainConfig,
+    config_differences,
+    config_from_mapping,
+    load_config_file,
+)
+from rntn_engine.run.run_directory import (
+    CONFIG_FILE,
+    METRICS_FILE,
+    MODEL_FILE,
+    PROGRESS_FILE,
+    RunLock,
+    append_metrics,
+    checkpoint_name,
+    is_run_directory,
+    list_checkpoints,
+    prune_checkpoints,
+    remove_leftover_temp_files,
+    rewrite_metrics_log,
+    write_json_atomic,
+)
+from rntn_engine.run.run_errors import RunDirectoryError, TrainingError
 from rntn_engine.run.scores import accuracy, majority_class
+from rntn_engine.run.stop_signals import EXIT_STOPPED_RESUMABLE, StopRequest, parse_duration
 
-MODEL_FILE = "model.h5"  # the trained parameters and vocabulary, in the run directory
-CONFIG_FILE = "config.toml"  # the resolved configuration
-METRICS_FILE = "metrics.jsonl"  # one JSON line per evaluation
+EXIT_FINISHED = 0
+HEARTBEAT_SECONDS = 5.0  # how often progress.json is refreshed
 
 
 def file_sha256(path: str | Path) -> str:
@@ -50,6 +85,32 @@ def epoch_order(seed: int, epoch: int, n_trees: int) -> np.ndarray:
 
 
 @dataclass
+class RunState:
+    """Where a run is. Saved in every checkpoint; every field decides the future."""
+
+    step: int = 0  # minibatch updates done
+    epoch: int = 0  # current epoch, 0-based (= epochs completed when position is 0)
+    position: int = 0  # trees of the current epoch already trained on
+    epoch_loss: float = 0.0  # sum over this epoch's minibatches of loss x trees, so far
+    epoch_nodes: int = 0  # nodes trained on this epoch, so far
+    best_value: float | None = None  # best value of best_metric so far
+    best_step: int | None = None  # step of the best evaluation
+    best_checkpoint: str = ""  # file name of the best checkpoint
+    evaluations_without_improvement: int = 0  # for early stopping
+    finished: bool = False  # the run is complete (all epochs, or stopped early)
+    finish_reason: str = ""  # "all epochs done" or "early stopping"
+    training_seconds: float = 0.0  # wall time spent training, all invocations together
+
+    def to_dict(self) -> dict:
+        return dataclasses.asdict(self)
+
+    @classmethod
+    def from_dict(cls, values: dict) -> "RunState":
+        known = {f.name for f in dataclasses.fields(cls)}
+        return cls(**{k: v for k, v in values.items() if k in known})
+
+
+@dataclass
 class TrainingData:
     vocabulary: Vocabulary
     train: EncodedTreebank
@@ -57,102 +118,312 @@ class TrainingData:
     hashes: dict[str, str] = field(default_factory=dict)
 
 
+def data_file_hashes(config: TrainConfig) -> dict[str, str]:
+    hashes = {"train_file": file_sha256(config.train_file)}
+    if config.dev_file:
+        hashes["dev_file"] = file_sha256(config.dev_file)
+    return hashes
+
+
 def load_training_data(config: TrainConfig, vocabulary: Vocabulary | None = None) -> TrainingData:
     """Read the treebanks (errors point at file:line:column), build or reuse the vocabulary, encode."""
     train_trees = read_trees(config.train_file, num_classes=config.num_classes, binarise=config.binarise)
     if vocabulary is None:
         vocabulary = build_vocabulary(train_trees, config.min_count, config.lowercase)
-    hashes = {"train_file": file_sha256(config.train_file)}
     dev = None
     if config.dev_file:
         dev_trees = read_trees(config.dev_file, num_classes=config.num_classes, binarise=config.binarise)
         dev = encode_treebank(dev_trees, vocabulary)
-        hashes["dev_file"] = file_sha256(config.dev_file)
-    return TrainingData(vocabulary, encode_treebank(train_trees, vocabulary), dev, hashes)
+    return TrainingData(vocabulary, encode_treebank(train_trees, vocabulary), dev, data_file_hashes(config))
 
 
-@dataclass
-class TrainResult:
-    params: Parameters
-    vocabulary: Vocabulary
-    history: list[dict]
-    run_dir: Path
+# --- starting and resuming -----------------------------------------------------------------------------
 
 
-def train(config: TrainConfig, echo: Callable[[str], None] = print, show_progress: bool | None = None) -> TrainResult:
-    """Train from scratch as ``config`` says; write the model file, config and metrics into the run directory."""
-    config.validate()
+def prepare_new_run_directory(config: TrainConfig) -> Path:
+    """Create the run directory for a new run; refuse one that holds anything already."""
     run_dir = config.resolved_run_dir()
+    if run_dir.exists() and not run_dir.is_dir():
+        raise RunDirectoryError(f"{run_dir}: exists and is not a directory")
+    if run_dir.is_dir() and any(run_dir.iterdir()):
+        if is_run_directory(run_dir):
+            raise RunDirectoryError(f"{run_dir}: already holds a run; continue it with `rntn resume {run_dir}` "
+                                    f"or choose another --run-dir")
+        raise RunDirectoryError(f"{run_dir}: directory is not empty and is not a run of ours; "
+                                f"choose an empty or new --run-dir")
     run_dir.mkdir(parents=True, exist_ok=True)
-    (run_dir / CONFIG_FILE).write_text(config.to_toml(), encoding="utf-8")
-    (run_dir / METRICS_FILE).write_text("", encoding="utf-8")
+    return run_dir
 
-    # --- data ---------------------------------------------------------------------------------------
-    data = load_training_data(config)
-    bank = data.train
-    shape = ModelShape(config.model, len(data.vocabulary), config.dim, config.num_classes, config.dtype)
-    echo(f"training {config.model} d={config.dim} on {bank.n_trees} trees ({bank.n_nodes} nodes), "
-         f"vocabulary {len(data.vocabulary)} words, {shape.count():,} parameters "
-         f"({shape.training_bytes() / 2**20:.1f} MiB with gradient and AdaGrad state)")
-    if data.dev is not None:
-        echo(majority_baseline_line(bank, data.dev))
 
-    # --- model and optimiser ------------------------------------------------------------------------
-    params = init_parameters(shape, np.random.default_rng(config.seed))
-    grads = params.zeros_like()
-    l2 = L2Strengths(config.l2_words, config.l2_compose, config.l2_tensor, config.l2_classifier)
-    objective = TreeModelObjective(params, l2, threads=config.threads)
-    optimiser = AdaGrad(params, config.lr, config.adagrad_eps)
-    steps_per_epoch = -(-bank.n_trees // config.batch_size)
-    history: list[dict] = []
-    step = 0
-    show = show_progress if show_progress is not None else None  # None: tqdm decides (quiet when not a tty)
-    start_time = time.perf_counter()
+def load_latest_valid_checkpoint(run_dir: Path, echo: Callable[[str], None]) -> Checkpoint | None:
+    """The newest checkpoint (by step) that verifies; damaged newer ones are renamed aside with a warning."""
+    damaged = []
+    for candidate in reversed(list_checkpoints(run_dir)):
+        try:
+            checkpoint = load_checkpoint(candidate.path)
+        except CheckpointError as exc:
+            echo(f"warning: {exc}; falling back to the previous checkpoint")
+            damaged.append(candidate.path)
+            continue
+        for path in damaged:  # keep the evidence, out of the way of new checkpoints of the same step
+            os.replace(path, path.with_name(path.name + ".damaged"))
+        return checkpoint
+    for path in damaged:
+        os.replace(path, path.with_name(path.name + ".damaged"))
+    return None
 
-    try:
-        for epoch in range(config.epochs):
-            # --- schedule: this epoch's order, optional AdaGrad reset ----------------------------------
-            if config.adagrad_reset_epochs and epoch > 0 and epoch % config.adagrad_reset_epochs == 0:
-                optimiser.reset()
-            order = epoch_order(config.seed, epoch, bank.n_trees)
-            epoch_loss, epoch_nodes, t0 = 0.0, 0, time.perf_counter()
-            bar = tqdm(total=steps_per_epoch, desc=f"epoch {epoch + 1}/{config.epochs}", unit="batch",
-                       disable=None if show is None else not show, leave=False)
-            # --- forward / backward / update, one minibatch at a time --------------------------------
-            for position in range(0, bank.n_trees, config.batch_size):
-                tree_ids = order[position : position + config.batch_size]
-                chunks = split_into_chunks(bank, tree_ids, config.grad_chunks)
-                loss = objective.loss_and_gradient(params, grads, chunks)
-                if not np.isfinite(loss):
-                    raise TrainingError(f"loss became {loss} at epoch {epoch + 1}, step {step + 1}: "
-                                        f"lower --lr (now {config.lr}) or raise the L2 strengths")
-                optimiser.step(params, grads)
-                step += 1
-                epoch_loss += loss * len(tree_ids)
-                epoch_nodes += sum(c.n_nodes for c in chunks)
-                bar.update(1)
-            bar.close()
-            # --- evaluate and log ----------------------------------------------------------------------
-            seconds = time.perf_counter() - t0
-            record = {"step": step, "epoch": epoch + 1, "train_loss": epoch_loss / bank.n_trees,
-                      "wall_seconds": round(time.perf_counter() - start_time, 3),
-                      "nodes_per_second": round(epoch_nodes / seconds, 1) if seconds > 0 else None}
-            if data.dev is not None:
-                dev = predict_treebank(objective, params, data.dev)
-                record.update({f"dev_{k}": v for k, v in dev.fine_scores().items()})
-                record["dev_loss"] = dev.mean_loss()
-            history.append(record)
-            with open(run_dir / METRICS_FILE, "a", encoding="utf-8") as fh:
-                fh.write(json.dumps(record) + "\n")
-            echo(format_epoch_line(record, seconds))
-    finally:
-        objective.close()
 
-    # --- save --------------------------------------------------------------------------------------
-    state = {"step": step, "epoch": config.epochs, "position": 0, "finished": True}
-    save_checkpoint(run_dir / MODEL_FILE, params, data.vocabulary, config, optimiser, state, history, data.hashes)
-    echo(f"saved {run_dir / MODEL_FILE}")
-    return TrainResult(params, data.vocabulary, history, run_dir)
+def stored_config(run_dir: Path) -> TrainConfig:
+    if not is_run_directory(run_dir):
+        raise RunDirectoryError(f"{run_dir}: not a run directory of ours (no {CONFIG_FILE} with a [train] table)")
+    return config_from_mapping(load_config_file(run_dir / CONFIG_FILE), source=str(run_dir / CONFIG_FILE))
+
+
+# --- the loop --------------------------------------------------------------------------------------------
+
+
+class Trainer:
+    """Owns one training session in a run directory (see module docstring)."""
+
+    def __init__(self, run_dir: Path, config: TrainConfig, echo: Callable[[str], None] = print,
+                 show_progress: bool | None = None) -> None:
+        self.run_dir = run_dir
+        self.config = config
+        self.echo = echo
+        self.show_progress = show_progress
+        self.fault = fault_from_environment()
+        self.last_saved_step: int | None = None
+        self.last_save_time = time.monotonic()
+        self.last_heartbeat = 0.0
+
+    # .. checkpoints ...........................................................................................
+
+    def save(self, params: Parameters, optimiser: AdaGrad, state: RunState, history: list[dict],
+             data: TrainingData) -> Path:
+        """Write a checkpoint of the current state, then prune old ones. Never on NaN, never over a good one."""
+        if not np.all(np.isfinite(params.flat)):
+            raise TrainingError(f"parameters hold NaN or Inf at step {state.step}; not saving them. The last "
+                                f"good checkpoint is untouched: lower --lr and resume from it, or start again")
+        path = self.run_dir / checkpoint_name(state.step)
+        try:
+            save_checkpoint(path, params, data.vocabulary, self.config, optimiser.sums, state.to_dict(), history,
+                            data.hashes, fault=self.fault)
+        except OSError as exc:
+            previous = list_checkpoints(self.run_dir)
+            kept = f"the previous checkpoint {previous[-1].path.name} is intact" if previous else "no checkpoint existed yet"
+            raise TrainingError(f"{path}: could not write the checkpoint ({exc.strerror or exc}); {kept}. "
+                                f"Free space, then `rntn resume {self.run_dir}`") from None
+        self.last_saved_step = state.step
+        self.last_save_time = time.monotonic()
+        protect = {self.run_dir / state.best_checkpoint} if state.best_checkpoint else set()
+        prune_checkpoints(self.run_dir, self.config.keep_checkpoints, protect | {path}, fault=self.fault)
+        return path
+
+    def heartbeat(self, state: RunState, n_trees: int, steps_per_epoch: int, rate: float | None,
+                  force: bool = False) -> None:
+        now = time.time()
+        if not force and now - self.last_heartbeat < HEARTBEAT_SECONDS:
+            return
+        self.last_heartbeat = now
+        write_json_atomic(self.run_dir / PROGRESS_FILE, {
+            "pid": os.getpid(), "updated": now, "step": state.step, "epoch": state.epoch,
+            "position": state.position, "trees_per_epoch": n_trees, "epochs": self.config.epochs,
+            "steps_per_epoch": steps_per_epoch, "nodes_per_second": rate, "finished": state.finished})
+
+    # .. the run ...............................................................................................
+
+    def run(self, checkpoint: Checkpoint | None) -> int:
+        """Train from ``checkpoint`` (None: from scratch) to the end or a stop; returns the exit code."""
+        config = self.config
+        # --- restore: data, parameters, optimiser, position -- all at this one point --------------------------
+        data = load_training_data(config, checkpoint.vocabulary if checkpoint else None)
+        bank = data.train
+        shape = ModelShape(config.model, len(data.vocabulary), config.dim, config.num_classes, config.dtype)
+        if checkpoint is None:
+            params = init_parameters(shape, np.random.default_rng(config.seed))
+            optimiser = AdaGrad(params, config.lr, config.adagrad_eps)
+            state, history = RunState(), []
+        else:
+            params = checkpoint.params
+            optimiser = AdaGrad(params, config.lr, config.adagrad_eps)
+            optimiser.sums.flat[:] = checkpoint.adagrad_sums.flat
+            state, history = RunState.from_dict(checkpoint.state), list(checkpoint.metrics)
+            self.last_saved_step = state.step
+        if state.finished and state.finish_reason == "all epochs done" and state.epoch < config.epochs:
+            state.finished, state.finish_reason = False, ""  # more epochs were asked for on resume
+        rewrite_metrics_log(self.run_dir, history)
+
+        grads = params.zeros_like()
+        l2 = L2Strengths(config.l2_words, config.l2_compose, config.l2_tensor, config.l2_classifier)
+        objective = TreeModelObjective(params, l2, threads=config.threads)
+        steps_per_epoch = -(-bank.n_trees // config.batch_size)
+        stop = StopRequest(parse_duration(config.time_limit) if config.time_limit else 0.0)
+        where = "from the beginning" if checkpoint is None else f"from step {state.step} (epoch {state.epoch + 1}, " \
+                                                               f"tree {state.position} of {bank.n_trees})"
+        self.echo(f"training {config.model} d={config.dim} on {bank.n_trees} trees ({bank.n_nodes} nodes), "
+                  f"vocabulary {len(data.vocabulary)} words, {shape.count():,} parameters "
+                  f"({shape.training_bytes() / 2**20:.1f} MiB with gradient and AdaGrad state), {where}")
+        if data.dev is not None and checkpoint is None:
+            self.echo(majority_baseline_line(bank, data.dev))
+        if checkpoint is None and not list_checkpoints(self.run_dir):
+            self.save(params, optimiser, state, history, data)  # step 0: a resume never starts from nothing
+        session_start = time.monotonic()
+        seconds_before = state.training_seconds
+        rate: float | None = None
+        stop.install()
+        try:
+            while state.epoch < config.epochs:
+                # --- schedule: this epoch's order, optional AdaGrad reset ------------------------------------
+                if (config.adagrad_reset_epochs and state.epoch > 0 and state.position == 0
+                        and state.epoch % config.adagrad_reset_epochs == 0):
+                    optimiser.reset()
+                order = epoch_order(config.seed, state.epoch, bank.n_trees)
+                bar = tqdm(total=bank.n_trees, initial=state.position, unit="tree", leave=False,
+                           desc=f"epoch {state.epoch + 1}/{config.epochs}",
+                           disable=None if self.show_progress is None else not self.show_progress)
+                t_epoch, nodes_epoch_session = time.perf_counter(), 0
+                while state.position < bank.n_trees:
+                    # --- stop requested? checkpoint at this minibatch boundary and leave ------------------
+                    if stop.should_stop():
+                        bar.close()
+                        state.training_seconds = seconds_before + time.monotonic() - session_start
+                        if self.last_saved_step != state.step:
+                            self.save(params, optimiser, state, history, data)
+                        self.heartbeat(state, bank.n_trees, steps_per_epoch, rate, force=True)
+                        self.echo(f"stopped by {stop.reason} at step {state.step} with a checkpoint; "
+                                  f"continue with `rntn resume {self.run_dir}`")
+                        return EXIT_STOPPED_RESUMABLE
+                    # --- forward / backward / update -------------------------------------------------------
+                    tree_ids = order[state.position : state.position + config.batch_size]
+                    chunks = split_into_chunks(bank, tree_ids, config.grad_chunks)
+                    loss = objective.loss_and_gradient(params, grads, chunks)
+                    if not np.isfinite(loss):
+                        raise TrainingError(f"loss became {loss} at epoch {state.epoch + 1}, step {state.step + 1}; "
+                                            f"the last good checkpoint is untouched. Lower --lr (now {config.lr}) "
+                                            f"or raise the L2 strengths and start a new run")
+                    optimiser.step(params, grads)
+                    nodes = sum(c.n_nodes for c in chunks)
+                    state.step += 1
+                    state.position += len(tree_ids)
+                    state.epoch_loss += loss * len(tree_ids)
+                    state.epoch_nodes += nodes
+                    nodes_epoch_session += nodes
+                    bar.update(len(tree_ids))
+                    # --- log progress; checkpoint by steps or by wall time ---------------------------------
+                    elapsed = time.perf_counter() - t_epoch
+                    rate = nodes_epoch_session / elapsed if elapsed > 0 else None
+                    self.heartbeat(state, bank.n_trees, steps_per_epoch, rate)
+                    by_steps = config.checkpoint_every_steps and state.step % config.checkpoint_every_steps == 0
+                    by_time = (config.checkpoint_every_minutes
+                               and time.monotonic() - self.last_save_time >= 60 * config.checkpoint_every_minutes)
+                    if (by_steps or by_time) and state.position < bank.n_trees:
+                        state.training_seconds = seconds_before + time.monotonic() - session_start
+                        self.save(params, optimiser, state, history, data)
+                bar.close()
+                # --- epoch end: evaluate, log, early stopping, checkpoint ---------------------------------------
+                state.training_seconds = seconds_before + time.monotonic() - session_start
+                record = self.evaluate(objective, params, state, data, rate)
+                history.append(record)
+                append_metrics(self.run_dir, record)
+                self.echo(format_epoch_line(record))
+                state.epoch += 1
+                state.position, state.epoch_loss, state.epoch_nodes = 0, 0.0, 0
+                value = record.get(config.best_metric)
+                if value is not None and (state.best_value is None or value > state.best_value):
+                    state.best_value, state.best_step = value, state.step
+                    state.best_checkpoint = checkpoint_name(state.step)
+                    state.evaluations_without_improvement = 0
+                elif value is not None:
+                    state.evaluations_without_improvement += 1
+                if config.patience and state.evaluations_without_improvement >= config.patience:
+                    state.finished, state.finish_reason = True, "early stopping"
+                elif state.epoch >= config.epochs:
+                    state.finished, state.finish_reason = True, "all epochs done"
+                self.save(params, optimiser, state, history, data)
+                if state.finished:
+                    break
+        finally:
+            stop.uninstall()
+            objective.close()
+        # --- finish: the final model ---------------------------------------------------------------------
+        if state.finish_reason == "early stopping":
+            self.echo(f"early stopping: {config.best_metric} did not improve for {config.patience} evaluations")
+        self.heartbeat(state, bank.n_trees, steps_per_epoch, rate, force=True)
+        self.write_final_model(params, optimiser, state, history, data)
+        return EXIT_FINISHED
+
+    def evaluate(self, objective: TreeModelObjective, params: Parameters, state: RunState,
+                 data: TrainingData, rate: float | None) -> dict:
+        record = {"step": state.step, "epoch": state.epoch + 1,
+                  "train_loss": state.epoch_loss / data.train.n_trees,
+                  "wall_seconds": round(state.training_seconds, 3),
+                  "nodes_per_second": round(rate, 1) if rate else None}
+        if data.dev is not None:
+            dev = predict_treebank(objective, params, data.dev)
+            record.update({f"dev_{k}": v for k, v in dev.fine_scores().items()})
+            record["dev_loss"] = dev.mean_loss()
+        return record
+
+    def write_final_model(self, params: Parameters, optimiser: AdaGrad, state: RunState, history: list[dict],
+                          data: TrainingData) -> None:
+        path = self.run_dir / MODEL_FILE
+        save_checkpoint(path, params, data.vocabulary, self.config, optimiser.sums, state.to_dict(), history, data.hashes,
+                        fault=self.fault)
+        best = f"; best {self.config.best_metric} {state.best_value:.4f} in {state.best_checkpoint}" \
+            if state.best_value is not None else ""
+        self.echo(f"saved {path}{best}")
+
+
+def finished_with_nothing_to_do(checkpoint: Checkpoint, epochs: int) -> bool:
+    """A finished run stays finished unless it ran all its epochs and more are now asked for."""
+    state = RunState.from_dict(checkpoint.state)
+    return state.finished and not (state.finish_reason == "all epochs done" and epochs > state.epoch)
+
+
+def start_training(config: TrainConfig, echo: Callable[[str], None] = print,
+                   show_progress: bool | None = None) -> int:
+    """`rntn train`: a new run in a new or empty run directory."""
+    config.validate()
+    run_dir = prepare_new_run_directory(config)
+    with RunLock(run_dir):
+        (run_dir / CONFIG_FILE).write_text(config.to_toml(), encoding="utf-8")
+        return Trainer(run_dir, config, echo, show_progress).run(None)
+
+
+def resume_training(run_dir: Path, overrides: dict, echo: Callable[[str], None] = print,
+                    show_progress: bool | None = None, allow_changed_data: bool = False) -> int:
+    """`rntn resume`: continue the run in ``run_dir`` from its newest valid checkpoint."""
+    config = stored_config(run_dir)
+    with RunLock(run_dir):
+        for leftover in remove_leftover_temp_files(run_dir):
+            echo(f"removed the leftover of an interrupted write: {leftover.name}")
+        checkpoint = load_latest_valid_checkpoint(run_dir, echo)
+        if checkpoint is not None:
+            differing = config_differences(checkpoint.config, config, ignore=RESUME_OVERRIDABLE)
+            if differing:
+                raise RunDirectoryError(f"{run_dir / CONFIG_FILE}: differs from the checkpoint in "
+                                        f"{', '.join(differing)}; restore it or start a new run")
+            config = checkpoint.config
+            changed = [k for k, v in data_file_hashes(config).items() if checkpoint.data_hashes.get(k) != v]
+            if changed and not allow_changed_data:
+                raise RunDirectoryError(f"{run_dir}: the content of {', '.join(changed)} changed since the "
+                                        f"checkpoint was written; pass --allow-changed-data to continue anyway")
+        else:
+            echo(f"no valid checkpoint in {run_dir}: starting the run from the beginning")
+        config = config_from_mapping(overrides, config)
+        config.validate()
+        if checkpoint is not None and finished_with_nothing_to_do(checkpoint, config.epochs):
+            state = RunState.from_dict(checkpoint.state)
+            if not (run_dir / MODEL_FILE).exists():  # killed between the last checkpoint and the model file
+                save_checkpoint(run_dir / MODEL_FILE, checkpoint.params, checkpoint.vocabulary, checkpoint.config,
+                                checkpoint.adagrad_sums, checkpoint.state, checkpoint.metrics, checkpoint.data_hashes)
+                echo(f"saved {run_dir / MODEL_FILE}")
+            echo(f"run already finished at step {state.step} ({state.finish_reason}); nothing to do")
+            return EXIT_FINISHED
+        (run_dir / CONFIG_FILE).write_text(config.to_toml(), encoding="utf-8")
+        if checkpoint is not None:
+            checkpoint.config = config
+        return Trainer(run_dir, config, echo, show_progress).run(checkpoint)
 
 
 def majority_baseline_line(train: EncodedTreebank, dev: EncodedTreebank) -> str:
@@ -165,8 +436,8 @@ def majority_baseline_line(train: EncodedTreebank, dev: EncodedTreebank) -> str:
             f"roots {roots:.4f} (class {root_class})")
 
 
-def format_epoch_line(record: dict, seconds: float) -> str:
+def format_epoch_line(record: dict) -> str:
     line = f"epoch {record['epoch']:>3}  step {record['step']:>7}  train loss {record['train_loss']:.4f}"
     if "dev_fine_all" in record:
         line += f"  dev fine all-nodes {record['dev_fine_all']:.4f}  root {record['dev_fine_root']:.4f}"
-    return line + f"  ({seconds:.1f} s)"
+    return line + f"  ({record['wall_seconds']:.1f} s)"
