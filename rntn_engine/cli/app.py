@@ -57,10 +57,12 @@ def _register_commands() -> None:
     from rntn_engine.cli import stats_command
 
     app.command("stats")(stats_command.stats)
-    from rntn_engine.cli import gradcheck_command, resume_command, train_command
+    from rntn_engine.cli import gradcheck_command, inspect_command, resume_command, status_command, train_command
 
     app.command("train")(train_command.train)
     app.command("resume")(resume_command.resume)
+    app.command("status")(status_command.status)
+    app.command("inspect")(inspect_command.inspect)
     app.command("gradcheck")(gradcheck_command.gradcheck)
 
 

@@ -11,7 +11,7 @@ import typer
 def resume(
     run_dir: Annotated[Path, typer.Argument(help="Run directory made by `rntn train`.")],
     epochs: Annotated[Optional[int], typer.Option("--epochs", help="Raise (or lower) the total number of epochs.")] = None,
-    time_limit: Annotated[Optional[str], typer.Option("--time-limit", help="Wall-clock budget of this session, e.g. 23h (exit code 75 when reached).")] = None,
+    time_limit: Annotated[Optional[str], typer.Option("--time-limit", help="Wall-clock budget of each session, e.g. 23h (exit code 75 when reached); 0 removes the stored one.")] = None,
     threads: Annotated[Optional[int], typer.Option("--threads", help="Worker threads (never changes results).")] = None,
     checkpoint_every_steps: Annotated[Optional[int], typer.Option("--checkpoint-every-steps", help="Also checkpoint every N steps (0: off).")] = None,
     checkpoint_every_minutes: Annotated[Optional[float], typer.Option("--checkpoint-every-minutes", help="Also checkpoint every this many minutes (0: off).")] = None,

@@ -40,7 +40,7 @@ def train(
     keep_checkpoints: Annotated[Optional[int], typer.Option("--keep-checkpoints", help=f"Newest checkpoints kept; the best one is kept as well. [default: {_D.keep_checkpoints}]")] = None,
     best_metric: Annotated[Optional[str], typer.Option("--best-metric", help=f"Dev score that picks the best checkpoint: dev_fine_root or dev_fine_all. [default: {_D.best_metric}]")] = None,
     patience: Annotated[Optional[int], typer.Option("--patience", help="Stop after N evaluations without a better --best-metric (0: never). [default: 0]")] = None,
-    time_limit: Annotated[Optional[str], typer.Option("--time-limit", help="Stop cleanly with a checkpoint after this much wall time, e.g. 23h, 90m, 1h30m (exit code 75, resumable).")] = None,
+    time_limit: Annotated[Optional[str], typer.Option("--time-limit", help="Stop cleanly with a checkpoint after this much wall time, e.g. 23h, 90m, 1h30m (exit code 75, resumable); applies again to every `rntn resume` session unless changed there.")] = None,
     config_file: Annotated[Optional[Path], typer.Option("--config", help="TOML file with any of these settings (flags override it).")] = None,
     print_config: Annotated[bool, typer.Option("--print-config", help="Print the resolved configuration as TOML and exit.")] = False,
     progress: Annotated[Optional[bool], typer.Option("--progress/--no-progress", help="Progress bar. [default: only on a terminal]")] = None,

@@ -65,6 +65,8 @@ class TextRowReader:
         self.rows = 0  # rows read so far
         self.offset = start.rest_offset  # file offset of the next unread byte of `pending`
         self.pending = start.rest
+        # the wanted words as UTF-8 bytes (a word with a lone surrogate can match no UTF-8 text)
+        self.byte_keys = None if keeper.keys is None else {k.encode("utf-8", "surrogatepass") for k in keeper.keys}
 
     # --- the loop over blocks ------------------------------------------------------------------------
 
@@ -72,31 +74,36 @@ class TextRowReader:
         """Read rows until the end of the file (or ``stop_after`` rows); then check the row count."""
         if self.dim is None:
             self.dim = self._dim_from_first_row()
-        while self.pending or not self.stream.at_end:
-            if self.stream.at_end:
-                block, self.pending = self.pending, b""
-            else:
-                cut = self.pending.rfind(b"\n") + 1
-                if cut == 0:  # no complete line yet
-                    if len(self.pending) > files.MAX_LINE_BYTES:
-                        raise VectorFileError(
-                            self.path,
-                            f"line longer than {files.MAX_LINE_BYTES:,} bytes: expected one word vector per line",
-                            line=self.line_no,
-                        )
-                    self.pending += self.stream.read(files.BLOCK_BYTES)
-                    continue
-                block, self.pending = self.pending[:cut], self.pending[cut:]
+        while (block := self._next_block()) is not None:
             if self._read_block(block):
                 break
-            if not self.stream.at_end:
-                self.pending += self.stream.read(files.BLOCK_BYTES)
         if self.declared is not None and self.rows < self.declared and not self._stopped():
             raise VectorFileError(
                 self.path,
                 f"the file ends after {self.rows} rows; the header on line 1 declares {self.declared}",
                 line=self.line_no,
             )
+
+    def _next_block(self) -> bytes | None:
+        """The next run of whole lines (the file's last line may lack its line feed); None at the end."""
+        while True:
+            if self.stream.at_end:
+                block, self.pending = self.pending, b""
+                return block or None
+            chunk = self.stream.read(files.BLOCK_BYTES)
+            cut = chunk.rfind(b"\n") + 1
+            if cut == 0:  # no line ends in this chunk
+                self.pending += chunk
+                if len(self.pending) > files.MAX_LINE_BYTES:
+                    raise VectorFileError(
+                        self.path,
+                        f"line longer than {files.MAX_LINE_BYTES:,} bytes: expected one word vector per line",
+                        line=self.line_no,
+                    )
+                continue
+            block = b"".join((self.pending, memoryview(chunk)[:cut]))
+            self.pending = chunk[cut:]
+            return block
 
     def _stopped(self) -> bool:
         return self.stop_after is not None and self.rows >= self.stop_after
@@ -121,26 +128,29 @@ class TextRowReader:
 
     def _read_block(self, block: bytes) -> bool:
         """Check and read the rows of ``block``; True when the reading is over."""
-        if self.errors == "strict" and self._rows_left() != 0:
+        utf8 = block.isascii()
+        if not utf8 and self._rows_left() != 0:
             try:
                 block.decode("utf-8")
+                utf8 = True
             except UnicodeDecodeError as exc:
-                line_start = block.rfind(b"\n", 0, exc.start) + 1
-                if line_start > 0:  # read the lines before the bad one first; it starts the next block
-                    self.pending = block[line_start:] + self.pending
-                    return self._read_lines(block[:line_start])
-                line_end = block.find(b"\n")
-                raise VectorFileError(
-                    self.path,
-                    f"bytes that are not UTF-8 ({quote(block[exc.start : exc.end])}); "
-                    "pass encoding_errors='replace' to substitute U+FFFD",
-                    line=self.line_no,
-                    column=column_of(block[: line_end if line_end >= 0 else len(block)], exc.start),
-                ) from None
-        return self._read_lines(block)
+                if self.errors == "strict":
+                    line_start = block.rfind(b"\n", 0, exc.start) + 1
+                    if line_start > 0:  # read the lines before the bad one first; it starts the next block
+                        self.pending = block[line_start:] + self.pending
+                        return self._read_lines(block[:line_start], utf8=True)
+                    line_end = block.find(b"\n")
+                    raise VectorFileError(
+                        self.path,
+                        f"bytes that are not UTF-8 ({quote(block[exc.start : exc.end])}); "
+                        "pass encoding_errors='replace' to substitute U+FFFD",
+                        line=self.line_no,
+                        column=column_of(block[: line_end if line_end >= 0 else len(block)], exc.start),
+                    ) from None
+        return self._read_lines(block, utf8)
 
-    def _read_lines(self, block: bytes) -> bool:
-        """Rows of ``block`` (whole lines, the last one may lack its line feed)."""
+    def _read_lines(self, block: bytes, utf8: bool) -> bool:
+        """Rows of ``block`` (whole lines, the last one may lack its line feed; ``utf8``: it all decodes)."""
         dim = self.dim
         a = np.frombuffer(block, dtype=np.uint8)
         ends = np.flatnonzero(a == 10)
@@ -172,7 +182,7 @@ class TextRowReader:
         bad = (n_spaces != dim) | (word_ends == starts)
         good = int(np.argmax(bad)) if bad.any() else n
 
-        self._keep_rows(block, starts[:good].tolist(), word_ends[:good].tolist(), content_ends[:good].tolist())
+        self._keep_rows(block, utf8, starts[:good].tolist(), word_ends[:good].tolist(), content_ends[:good].tolist())
         self.rows += good
         self.line_no += good
         self.offset += min(int(ends[good - 1]) + 1, len(block)) if good else 0
@@ -195,13 +205,26 @@ class TextRowReader:
             )
         return False
 
-    def _keep_rows(self, block: bytes, starts: list[int], word_ends: list[int], content_ends: list[int]) -> None:
-        """Look the words of well-formed rows up; parse and keep the values of the wanted ones."""
-        keeper, errors = self.keeper, self.errors
-        words = [block[s:w].decode("utf-8", errors) for s, w in zip(starts, word_ends)]
-        keys = keeper.keys
+    def _keep_rows(
+        self, block: bytes, utf8: bool, starts: list[int], word_ends: list[int], content_ends: list[int]
+    ) -> None:
+        """Look the words of well-formed rows up; parse and keep the values of the wanted ones.
+
+        When the block is valid UTF-8 the words are looked up as bytes (UTF-8 is one-to-one,
+        so that is the same as comparing text) and only the candidates are decoded.
+        """
+        keeper = self.keeper
+        words = [block[s:w] for s, w in zip(starts, word_ends)]
+        if not utf8:
+            words = [w.decode("utf-8", self.errors) for w in words]
+            keys = keeper.keys
+        else:
+            keys = self.byte_keys
         candidates = range(len(words)) if keys is None else [i for i, w in enumerate(words) if w in keys]
-        picked = [i for i in candidates if keeper.wants(words[i], self.line_no + i)]
+        if utf8:
+            picked = [i for i in candidates if keeper.wants(words[i].decode("utf-8"), self.line_no + i)]
+        else:
+            picked = [i for i in candidates if keeper.wants(words[i], self.line_no + i)]
         if not picked:
             return
         allowed = keeper.rows_allowed(self.dim)

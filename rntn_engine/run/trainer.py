@@ -68,7 +68,7 @@ from rntn_engine.run.scores import accuracy, majority_class
 from rntn_engine.run.stop_signals import EXIT_STOPPED_RESUMABLE, StopRequest, parse_duration
 
 EXIT_FINISHED = 0
-HEARTBEAT_SECONDS = 5.0  # how often progress.json is refreshed
+HEARTBEAT_SECONDS = 2.0  # how often progress.json is refreshed (also after every checkpoint)
 
 
 def file_sha256(path: str | Path) -> str:
@@ -340,6 +340,7 @@ class Trainer:
                 elif state.epoch >= config.epochs:
                     state.finished, state.finish_reason = True, "all epochs done"
                 self.save(params, optimiser, state, history, data)
+                self.heartbeat(state, bank.n_trees, steps_per_epoch, rate, force=True)
                 if state.finished:
                     break
         finally:
