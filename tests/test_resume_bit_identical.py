@@ -135,3 +135,32 @@ def test_resume_from_every_checkpoint_and_with_other_thread_counts(treebanks, re
         assert main(["resume", str(run_dir), "--no-progress", *threads]) == 0
         params, sums, _ = final_arrays(run_dir)
         assert np.array_equal(params, reference[0]) and np.array_equal(sums, reference[1]), c.step
+
+
+def test_sigterm_during_a_checkpoint_write_then_resume(treebanks, reference, tmp_path):
+    # SIGTERM arrives while a checkpoint is being written: that write completes, the run stops with 75
+    fault = {"RNTN_FAULT_POINT": "mid_write", "RNTN_FAULT_AFTER": "3", "RNTN_FAULT_ACTION": "term"}
+    run_dir = tmp_path / "run"
+    first = run_cli(train_args(treebanks, run_dir), fault)
+    assert first.returncode == EXIT_STOPPED, first.stderr
+    assert "stopped by SIGTERM" in first.stdout
+    resume_until_done(run_dir)
+    assert_same_as_reference(run_dir, reference)
+
+
+def test_second_sigint_exits_at_once(treebanks, tmp_path):
+    run_dir = tmp_path / "run"
+    proc = subprocess.Popen([sys.executable, "-m", "rntn_engine.cli.app",
+                             *train_args(treebanks, run_dir, epochs=100000)],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    deadline = time.time() + 60
+    while time.time() < deadline and len(list_checkpoints(run_dir)) < 2:
+        time.sleep(0.02)
+    proc.send_signal(signal.SIGINT)
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=60)
+    assert proc.returncode in (130, EXIT_STOPPED)  # 75 only if the first stop won the race
+    if proc.returncode == 130:
+        assert "second interrupt" in err
+    for c in list_checkpoints(run_dir):
+        read_checkpoint(c.path)

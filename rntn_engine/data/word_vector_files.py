@@ -49,6 +49,7 @@ DEFAULT_MAX_BYTES = 8 * 1024**3  # float32 bytes a file may declare (8 GiB; 3 mi
 DETECTION_WINDOW = 4096  # bytes of the first row's values looked at to tell text from binary
 
 _GZIP_MAGIC = b"\x1f\x8b"
+_GZIP_PIECE = 1024 * 1024  # gzip data is decompressed this much at a time, to locate corruption
 _BOM = b"\xef\xbb\xbf"
 _HEADER_RE = re.compile(rb"[ \t]*([0-9]{1,18})[ \t]+([0-9]{1,18})[ \t\r]*")
 # ASCII control bytes that never occur in a text row (tab and CR are allowed; LF ends the region)
@@ -85,14 +86,15 @@ class VectorStream:
         wanted = size
         while wanted > 0 and not self.at_end:
             try:
-                part = self._file.read(wanted)
+                part = self._file.read(min(wanted, _GZIP_PIECE) if self.compressed else wanted)
             except (EOFError, zlib.error, OSError) as exc:
-                what = "corrupt or truncated gzip data" if self.compressed else "cannot read the file"
-                raise VectorFileError(
-                    self.path,
-                    f"{what} ({exc}); the offset counts uncompressed bytes",
-                    byte_offset=self.offset + size - wanted,
-                ) from None
+                at = self.offset + size - wanted
+                message = (
+                    f"corrupt or truncated gzip data ({exc}) in the {_GZIP_PIECE:,} uncompressed bytes from here"
+                    if self.compressed
+                    else f"cannot read the file ({exc})"
+                )
+                raise VectorFileError(self.path, message, byte_offset=at) from None
             if not part:
                 self.at_end = True
             parts.append(part)
@@ -146,37 +148,38 @@ def read_file_start(stream: VectorStream, fmt: str, max_bytes: int, expected_dim
     if header is None:
         raise _error_at_start(path, binary_forced, f"expected a header 'count dim' (two integers), found {quote(first_line)}")
     count, dim = int(header.group(1)), int(header.group(2))
-    if dim < 1:
-        raise _error_at_start(path, binary_forced, "the header declares dimension 0: expected at least 1 value per vector")
-    if count * dim * 4 > max_bytes:
-        raise _error_at_start(
-            path,
-            binary_forced,
-            f"the header declares {count} rows of {dim} values, {count * dim * 4:,} bytes as float32, "
-            f"more than the limit of {max_bytes:,} (max_bytes); raise the limit if the file is genuine",
-        )
-    check_dim(path, dim, expected_dim, binary_forced)
     rest_start = end + 1 if end >= 0 else len(data)
     rest = data[rest_start:]
     while len(rest) < DETECTION_WINDOW + MAX_WORD_BYTES and not stream.at_end:
         rest += stream.read(BLOCK_BYTES)
-    is_binary = first_row_is_binary(rest, dim)
+    is_binary = count > 0 and dim > 0 and first_row_is_binary(rest, dim)
     if fmt == "auto":
-        fmt = "word2vec-binary" if is_binary and count > 0 else "word2vec-text"
-    elif fmt == "word2vec-text" and is_binary and count > 0:
+        fmt = "word2vec-binary" if is_binary else "word2vec-text"
+    elif fmt == "word2vec-text" and is_binary:
         raise VectorFileError(
             path,
             "found binary data where the first row's numbers should be: this looks like a "
             "word2vec binary file (read it with format='word2vec-binary' or 'auto')",
             line=2,
         )
-    elif fmt == "word2vec-binary" and not is_binary and count > 0:
+    elif fmt == "word2vec-binary" and count > 0 and not is_binary:
         raise VectorFileError(
             path,
             "found text where the first row's float32 values should be: this looks like a "
             "word2vec text file (read it with format='word2vec-text' or 'auto')",
             byte_offset=rest_start,
         )
+    binary = fmt == "word2vec-binary"
+    if dim < 1:
+        raise _error_at_start(path, binary, "the header declares dimension 0: expected at least 1 value per vector")
+    if count * dim * 4 > max_bytes:
+        raise _error_at_start(
+            path,
+            binary,
+            f"the header declares {count:,} rows of {dim:,} values, {count * dim * 4:,} bytes as float32, "
+            f"more than the limit of {max_bytes:,} (max_bytes); raise the limit if the file is genuine",
+        )
+    check_dim(path, dim, expected_dim, binary)
     return FileStart(fmt, dim, count, rest, rest_start, 2)
 
 

@@ -297,8 +297,8 @@ def _read(
         assert dim is not None
         if keeper.duplicates:
             warnings.warn(
-                f"{name}: {keeper.duplicates} repeated row(s) of wanted words skipped, the first row of each "
-                f"word kept (first repeat: {keeper.first_duplicate})",
+                f"{name}: {keeper.duplicates} repeated word(s) skipped, the first row of each kept "
+                f"(first repeat: {keeper.first_duplicate})",
                 DuplicateWordsWarning,
                 stacklevel=3,
             )

@@ -94,13 +94,17 @@ class TextRowReader:
             cut = chunk.rfind(b"\n") + 1
             if cut == 0:  # no line ends in this chunk
                 self.pending += chunk
-                if len(self.pending) > files.MAX_LINE_BYTES:
+                if len(self.pending) <= files.MAX_LINE_BYTES:
+                    continue
+                cut = self.pending.rfind(b"\n") + 1
+                if cut == 0:
                     raise VectorFileError(
                         self.path,
                         f"line longer than {files.MAX_LINE_BYTES:,} bytes: expected one word vector per line",
                         line=self.line_no,
                     )
-                continue
+                block, self.pending = self.pending[:cut], self.pending[cut:]
+                return block
             block = b"".join((self.pending, memoryview(chunk)[:cut]))
             self.pending = chunk[cut:]
             return block
@@ -249,8 +253,9 @@ class TextRowReader:
             try:
                 values[j] = float(token)
             except ValueError:
+                found = f"found {quote(token)}" if token else "found two spaces in a row"
                 raise VectorFileError(
-                    self.path, f"expected a number, found {quote(token)}", line=line_no, column=column_of(content, pos)
+                    self.path, f"expected a number, {found}", line=line_no, column=column_of(content, pos)
                 ) from None
             if not np.isfinite(_to_float32(values[j : j + 1]))[0]:
                 what = "is not a finite number" if not np.isfinite(values[j]) else "is beyond the float32 range (about 3.4e38)"

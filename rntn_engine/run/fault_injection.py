@@ -2,7 +2,8 @@
 
     RNTN_FAULT_POINT   before_open | mid_write | before_fsync | before_rename | after_rename | mid_prune
     RNTN_FAULT_AFTER   act on the Nth time that point is reached in this process (default 1)
-    RNTN_FAULT_ACTION  kill (SIGKILL this process) | enospc (raise "No space left on device")
+    RNTN_FAULT_ACTION  kill (SIGKILL this process) | term (SIGTERM this process, then carry on)
+                       | enospc (raise "No space left on device")
 
 Unset in normal use: then :func:`fault_from_environment` returns None and costs nothing.
 """
@@ -30,6 +31,9 @@ def fault_from_environment():
             return
         if action == "kill":
             os.kill(os.getpid(), signal.SIGKILL)
+        if action == "term":
+            os.kill(os.getpid(), signal.SIGTERM)
+            return
         raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
 
     return hit

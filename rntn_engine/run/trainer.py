@@ -92,7 +92,6 @@ class RunState:
     epoch: int = 0  # current epoch, 0-based (= epochs completed when position is 0)
     position: int = 0  # trees of the current epoch already trained on
     epoch_loss: float = 0.0  # sum over this epoch's minibatches of loss x trees, so far
-    epoch_nodes: int = 0  # nodes trained on this epoch, so far
     best_value: float | None = None  # best value of best_metric so far
     best_step: int | None = None  # step of the best evaluation
     best_checkpoint: str = ""  # file name of the best checkpoint
@@ -306,7 +305,6 @@ class Trainer:
                     state.step += 1
                     state.position += len(tree_ids)
                     state.epoch_loss += loss * len(tree_ids)
-                    state.epoch_nodes += nodes
                     nodes_epoch_session += nodes
                     bar.update(len(tree_ids))
                     # --- log progress; checkpoint by steps or by wall time ---------------------------------
@@ -327,7 +325,7 @@ class Trainer:
                 append_metrics(self.run_dir, record)
                 self.echo(format_epoch_line(record))
                 state.epoch += 1
-                state.position, state.epoch_loss, state.epoch_nodes = 0, 0.0, 0
+                state.position, state.epoch_loss = 0, 0.0
                 value = record.get(config.best_metric)
                 if value is not None and (state.best_value is None or value > state.best_value):
                     state.best_value, state.best_step = value, state.step
