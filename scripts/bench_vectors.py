@@ -100,7 +100,8 @@ def main(argv: list[str] | None = None) -> dict:
         print(f"median of {args.repeats}       seconds      MB/s")
         print(f"ours (load_vectors_for)  {ours_s:9.3f} {report['ours_mb_per_s']:9.1f}")
         print(f"gensim load_word2vec     {gensim_s:9.3f} {report['gensim_mb_per_s']:9.1f}")
-        print(f"speed-up vs gensim: {report['speedup_vs_gensim']:.1f}x; same float32 values: {'yes' if agree else 'NO'}")
+        same = "yes" if agree else "NO"
+        print(f"speed-up vs gensim: {report['speedup_vs_gensim']:.1f}x; same float32 values: {same}")
     return report
 
 

@@ -83,12 +83,17 @@ def test_round_trip_through_our_writers_and_reader(tmp_path, fmt, compress):
 
 
 float32s = st.floats(width=32, allow_nan=False, allow_infinity=False)
-words = st.text(st.characters(blacklist_characters=" \t\n\r\x0b\x0c", blacklist_categories=("Cs",)), min_size=1, max_size=8)
+# no whitespace (it separates fields), no lone surrogates (not UTF-8), no U+FEFF (a leading one reads as a BOM)
+words = st.text(
+    st.characters(blacklist_characters=" \t\n\r\x0b\x0c\ufeff", blacklist_categories=("Cs",)), min_size=1, max_size=8
+)
 
 
 @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(
-    rows=st.lists(st.tuples(words, st.lists(float32s, min_size=3, max_size=3)), min_size=1, max_size=6, unique_by=lambda r: r[0]),
+    rows=st.lists(
+        st.tuples(words, st.lists(float32s, min_size=3, max_size=3)), min_size=1, max_size=6, unique_by=lambda r: r[0]
+    ),
     fmt=st.sampled_from(sorted(WRITERS)),
 )
 def test_round_trip_of_any_float32_values_and_words(tmp_path, rows, fmt):
@@ -285,7 +290,8 @@ def test_matrix_falls_back_to_the_default_width_and_draws_the_same_amount():
             assert np.abs(matrix[~found]).max() <= FALLBACK_HALF_WIDTH
         states.append(rng.bit_generator.state["state"]["state"])
     assert states[0] == states[1] == states[2]  # coverage does not change what follows in the stream
-    np.testing.assert_array_equal(vectors_to_matrix(one_found, vocabulary, np.random.default_rng(3), 3)[0][1], [5, 5, 5])
+    matrix, _ = vectors_to_matrix(one_found, vocabulary, np.random.default_rng(3), 3)
+    np.testing.assert_array_equal(matrix[1], [5, 5, 5])
 
 
 # --- the bench script ------------------------------------------------------------------------------

@@ -67,7 +67,8 @@ def test_header_dimension_zero(tmp_path):
 
 
 def test_header_declares_more_rows_than_the_body_has(tmp_path):
-    expect(write(tmp_path / "v.txt", "3 2\na 1 2\nb 1 2\n"), "ends after 2 rows; the header on line 1 declares 3", line=4)
+    bad = write(tmp_path / "v.txt", "3 2\na 1 2\nb 1 2\n")
+    expect(bad, "ends after 2 rows; the header on line 1 declares 3", line=4)
 
 
 def test_header_declares_fewer_rows_than_the_body_has(tmp_path):
@@ -75,14 +76,16 @@ def test_header_declares_fewer_rows_than_the_body_has(tmp_path):
 
 
 def test_header_dimension_disagrees_with_the_rows(tmp_path):
-    expect(write(tmp_path / "v.txt", "2 3\na 1 2\nb 1 2\n"), "expected a word followed by 3 values, found 2", line=2, column=6)
+    bad = write(tmp_path / "v.txt", "2 3\na 1 2\nb 1 2\n")
+    expect(bad, "expected a word followed by 3 values, found 2", line=2, column=6)
 
 
 def test_header_implying_more_memory_than_allowed_is_refused_before_reading(tmp_path):
     path = write(tmp_path / "v.txt", "1000000000000 300\na 1\n")
     with mock.patch.object(word_vector_files.RowKeeper, "__init__", side_effect=AssertionError("allocated")):
         expect(path, r"1,000,000,000,000 rows of 300 values, .* more than the limit", line=1)
-    expect(write(tmp_path / "small.txt", "4 3\n"), "48 bytes as float32, more than the limit of 40", line=1, max_bytes=40)
+    bad = write(tmp_path / "small.txt", "4 3\n")
+    expect(bad, "48 bytes as float32, more than the limit of 40", line=1, max_bytes=40)
 
 
 def test_kept_vectors_beyond_max_bytes(tmp_path):
@@ -108,27 +111,25 @@ def test_matrix_for_a_model_of_another_dimension(tmp_path):
 # --- text rows ---------------------------------------------------------------------------------------
 
 
-def test_row_with_too_few_values(tmp_path):
-    expect(write(tmp_path / "v.txt", "a 1 2 3\nb 1 2\n"), "expected a word followed by 3 values, found 2", line=2, column=6)
+# (content, what the message says, line, column): one malformed text row each
+MALFORMED_TEXT_ROWS = {
+    "too few values": ("a 1 2 3\nb 1 2\n", "expected a word followed by 3 values, found 2", 2, 6),
+    "too many values (column at the first extra)": ("a 1 2 3\nb 1 2 3 4 5\n", "followed by 3 values, found 5", 2, 9),
+    "tab between values": ("a 1 2 3\nb 1\t2\n", "found 1 value; values must be separated by spaces, not tabs", 2, 6),
+    "two spaces in a row": ("a 1 2\nb 1  2\n", "two spaces in a row", 2, 5),
+    # the same two spaces when they add up to the right count: found while parsing the row
+    "two spaces, right count": ("a 1 2 3\nb 1  2\n", "expected a number, found two spaces in a row", 2, 5),
+    "only a word": ("a\nb 1\n", "a word followed by its values, found 0 values", 1, 2),
+    "empty word": ("a 1 2 3\n 1 2 3\n", r"empty word \(the line starts with a space\)", 2, 1),
+    "blank line between rows": ("a 1 2 3\n\nb 1 2 3\n", "blank line", 2, 1),
+    "blank first line": ("\na 1 2 3\n", "blank line", 1, 1),
+}
 
 
-def test_row_with_too_many_values(tmp_path):
-    # the column points at the first value too many
-    expect(write(tmp_path / "v.txt", "a 1 2 3\nb 1 2 3 4 5\n"), "followed by 3 values, found 5", line=2, column=9)
-
-
-def test_row_with_values_separated_by_a_tab(tmp_path):
-    expect(write(tmp_path / "v.txt", "a 1 2 3\nb 1\t2\n"), "found 1 value; values must be separated by spaces, not tabs", line=2, column=6)
-
-
-def test_row_with_two_spaces_in_a_row(tmp_path):
-    expect(write(tmp_path / "v.txt", "a 1 2\nb 1  2\n"), "two spaces in a row", line=2, column=5)
-    # the same spaces when they add up to the right count: found while parsing a wanted row
-    expect(write(tmp_path / "w.txt", "a 1 2 3\nb 1  2\n"), "expected a number, found two spaces in a row", line=2, column=5)
-
-
-def test_row_with_only_a_word(tmp_path):
-    expect(write(tmp_path / "v.txt", "a\nb 1\n"), "a word followed by its values, found 0 values", line=1, column=2)
+@pytest.mark.parametrize("case", sorted(MALFORMED_TEXT_ROWS))
+def test_malformed_text_row(tmp_path, case):
+    content, message, line, column = MALFORMED_TEXT_ROWS[case]
+    expect(write(tmp_path / "v.txt", content), message, line=line, column=column)
 
 
 def test_non_numeric_value_located_by_character_column(tmp_path):
@@ -170,19 +171,11 @@ def test_undecodable_bytes_after_many_blocks_are_located(tmp_path):
         expect(path, "not UTF-8", line=51, column=1)
 
 
-def test_empty_word_in_text(tmp_path):
-    expect(write(tmp_path / "v.txt", "a 1 2 3\n 1 2 3\n"), r"empty word \(the line starts with a space\)", line=2, column=1)
-
-
-def test_blank_line_between_rows(tmp_path):
-    expect(write(tmp_path / "v.txt", "a 1 2 3\n\nb 1 2 3\n"), "blank line", line=2, column=1)
-    expect(write(tmp_path / "w.txt", "\na 1 2 3\n"), "blank line", line=1, column=1)
-
-
 def test_line_longer_than_the_limit(tmp_path):
     path = write(tmp_path / "v.txt", "a 1\n" + "b" + " 1" * 100 + "\n")
-    with mock.patch.object(word_vector_files, "MAX_LINE_BYTES", 64), mock.patch.object(word_vector_files, "BLOCK_BYTES", 16):
-        expect(path, "line longer than 64 bytes", line=2)
+    with mock.patch.object(word_vector_files, "MAX_LINE_BYTES", 64):
+        with mock.patch.object(word_vector_files, "BLOCK_BYTES", 16):
+            expect(path, "line longer than 64 bytes", line=2)
 
 
 def test_binary_file_read_as_text(tmp_path):
@@ -209,12 +202,14 @@ def test_truncated_binary_row(tmp_path):
 
 def test_binary_file_with_fewer_rows_than_declared(tmp_path):
     data = binary_file(tmp_path).read_bytes()
-    expect(write(tmp_path / "v.bin", data.replace(b"2 2\n", b"3 2\n")), "ends after 2 rows; the header declares 3", byte=27)
+    bad = write(tmp_path / "v.bin", data.replace(b"2 2\n", b"3 2\n"))
+    expect(bad, "ends after 2 rows; the header declares 3", byte=27)
 
 
 def test_binary_file_with_more_rows_than_declared(tmp_path):
     data = binary_file(tmp_path).read_bytes()
-    expect(write(tmp_path / "v.bin", data.replace(b"2 2\n", b"1 2\n")), "data after the 1 rows the header declares", byte=15)
+    bad = write(tmp_path / "v.bin", data.replace(b"2 2\n", b"1 2\n"))
+    expect(bad, "data after the 1 rows the header declares", byte=15)
 
 
 def test_nan_in_binary(tmp_path):

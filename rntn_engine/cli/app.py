@@ -57,12 +57,24 @@ def _register_commands() -> None:
     from rntn_engine.cli import stats_command
 
     app.command("stats")(stats_command.stats)
-    from rntn_engine.cli import gradcheck_command, inspect_command, resume_command, status_command, train_command
+    from rntn_engine.cli import (
+        evaluate_command,
+        gradcheck_command,
+        inspect_command,
+        predict_command,
+        report_command,
+        resume_command,
+        status_command,
+        train_command,
+    )
 
     app.command("train")(train_command.train)
     app.command("resume")(resume_command.resume)
     app.command("status")(status_command.status)
     app.command("inspect")(inspect_command.inspect)
+    app.command("evaluate")(evaluate_command.evaluate)
+    app.command("predict")(predict_command.predict)
+    app.command("report")(report_command.report)
     app.command("gradcheck")(gradcheck_command.gradcheck)
 
 

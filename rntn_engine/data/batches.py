@@ -126,3 +126,15 @@ def make_batch(bank: EncodedTreebank, tree_ids: np.ndarray) -> FlatBatch:
     root = (offset[1:] - 1).astype(np.int32)
     leaves = np.flatnonzero(~internal).astype(np.int32)
     return FlatBatch(word, left, right, label, height, tree_of_node, root, order, level_start, leaves)
+
+
+def phrase_lengths(bank: EncodedTreebank) -> np.ndarray:
+    """(total_nodes,) int32: number of words under each node, computed level by level (no recursion)."""
+    n_words = np.where(bank.left < 0, 1, 0).astype(np.int32)
+    tree_start = np.repeat(bank.start[:-1], bank.tree_sizes())  # first node of each node's tree
+    internal = np.flatnonzero(bank.left >= 0)
+    heights = bank.height[internal]
+    for h in range(1, int(heights.max(initial=0)) + 1):
+        nodes = internal[heights == h]
+        n_words[nodes] = n_words[bank.left[nodes] + tree_start[nodes]] + n_words[bank.right[nodes] + tree_start[nodes]]
+    return n_words

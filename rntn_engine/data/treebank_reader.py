@@ -94,8 +94,14 @@ def parse_tree(
     line: int = 1,
     num_classes: int | None = None,
     binarise: str = "right",
+    ignore_labels: bool = False,
 ) -> Tree:
-    """Parse one tree written on one line; ``path`` and ``line`` only label errors and ``Tree.source``."""
+    """Parse one tree written on one line; ``path`` and ``line`` only label errors and ``Tree.source``.
+
+    ``ignore_labels=True`` accepts any label token (a class number, ``_``, or a parser's
+    syntactic category such as ``NP``) and stores every node as unlabelled: the mode for
+    trees whose labels are to be predicted.
+    """
     mode = _check_options(num_classes, binarise)
     text = text.rstrip("\r\n")
     if "\n" in text:
@@ -104,7 +110,8 @@ def parse_tree(
     if not body or body[0] == "#":
         found = "a comment" if body else "an empty line"
         raise TreebankError(path, f"expected a bracketed tree, found {found}", line, len(text) - len(body) + 1)
-    return _parse_line(text, str(path), line, _LabelReader(num_classes), mode)
+    labels = _AnyLabel() if ignore_labels else _LabelReader(num_classes)
+    return _parse_line(text, str(path), line, labels, mode)
 
 
 def iter_trees(
@@ -241,6 +248,18 @@ class _LabelReader:
         if token[:1] == "-" and token[1:].isascii() and token[1:].isdigit():
             return f"negative label {_quote(token)}: {self.expected}"
         return f"{self.expected}; found {_quote(token)}"
+
+
+class _AnyLabel(_LabelReader):
+    """Every label token reads as unlabelled (see ``ignore_labels``)."""
+
+    def __init__(self) -> None:
+        super().__init__(None)
+        self.known = {}
+        self.expected = "expected a label token (any label is accepted and ignored)"
+
+    def read(self, token: str) -> int | str:
+        return UNLABELLED
 
 
 # --- the line parser -----------------------------------------------------------------------------

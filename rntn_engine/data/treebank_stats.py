@@ -58,6 +58,11 @@ def _bucket_index(starts: np.ndarray, n_words) -> np.ndarray:
     return np.searchsorted(starts, n_words, side="right") - 1
 
 
+def phrase_length_bucket_index(n_words: np.ndarray) -> np.ndarray:
+    """Index into PHRASE_LENGTH_BUCKETS of each phrase length (vectorised :func:`length_bucket`)."""
+    return _bucket_index(_PHRASE_STARTS, np.asarray(n_words))
+
+
 def length_bucket(n_words: int) -> str:
     """Name of the phrase-length bucket of a phrase of ``n_words`` words: '1', '2', '3-5', '6-10', '11-20', '21+'."""
     if n_words < 1:

@@ -18,9 +18,11 @@ integers is a word2vec header, anything else is the first row of a GloVe file
 ``format="glove"``). After a header, the first row decides text or binary
 (:func:`first_row_is_binary`): binary if, where its values should be, the file
 holds bytes that no text row has there: an ASCII control byte, bytes that are not
-UTF-8, or no value before the line ends. A forced format that disagrees with this
-test is an error that names the other format, so a binary file read as text (and
-the reverse) gets one clear line instead of garbage.
+UTF-8, or no value before the line ends. Only a binary row whose first 4d bytes
+are all printable text (say d = 1 and a value whose four bytes are letters) fools
+the test; force the format for such a file. A forced format that disagrees with
+the test is an error that names the other format, so a binary file read as text
+(and the reverse) gets one clear line instead of garbage.
 
 Compression is recognised by the gzip magic bytes ``1f 8b``, never by the file name.
 """
@@ -139,14 +141,18 @@ def read_file_start(stream: VectorStream, fmt: str, max_bytes: int, expected_dim
         data += stream.read(BLOCK_BYTES)
     binary_forced = fmt == "word2vec-binary"
     if len(data) == start:
-        raise _error_at_start(path, binary_forced, "empty file: expected word vectors (GloVe text, word2vec text or binary)")
+        raise _error_at_start(
+            path, binary_forced, "empty file: expected word vectors (GloVe text, word2vec text or binary)"
+        )
     end = data.find(b"\n", start)
     first_line = data[start : end if end >= 0 else len(data)]
     header = _HEADER_RE.fullmatch(first_line)
     if fmt == "glove" or (fmt == "auto" and header is None):
         return FileStart("glove", None, None, data[start:], start, 1)
     if header is None:
-        raise _error_at_start(path, binary_forced, f"expected a header 'count dim' (two integers), found {quote(first_line)}")
+        raise _error_at_start(
+            path, binary_forced, f"expected a header 'count dim' (two integers), found {quote(first_line)}"
+        )
     count, dim = int(header.group(1)), int(header.group(2))
     rest_start = end + 1 if end >= 0 else len(data)
     rest = data[rest_start:]
@@ -162,7 +168,7 @@ def read_file_start(stream: VectorStream, fmt: str, max_bytes: int, expected_dim
             "word2vec binary file (read it with format='word2vec-binary' or 'auto')",
             line=2,
         )
-    elif fmt == "word2vec-binary" and count > 0 and not is_binary:
+    elif fmt == "word2vec-binary" and count > 0 and rest.strip() and not is_binary:
         raise VectorFileError(
             path,
             "found text where the first row's float32 values should be: this looks like a "

@@ -26,13 +26,17 @@ import numpy as np
 _BAD_WORD_RE = re.compile(r"[ \t\n\r\x0b\x0c]")  # ASCII whitespace would split the row
 
 
-def write_glove_text(path: str | os.PathLike, words: Sequence[str], vectors: np.ndarray, *, compress: bool = False) -> None:
+def write_glove_text(
+    path: str | os.PathLike, words: Sequence[str], vectors: np.ndarray, *, compress: bool = False
+) -> None:
     """GloVe text: ``word v1 ... vd`` per line, no header."""
     values = _checked(words, vectors)
     _write_atomically(path, compress, lambda out: _write_text_rows(out, words, values))
 
 
-def write_word2vec_text(path: str | os.PathLike, words: Sequence[str], vectors: np.ndarray, *, compress: bool = False) -> None:
+def write_word2vec_text(
+    path: str | os.PathLike, words: Sequence[str], vectors: np.ndarray, *, compress: bool = False
+) -> None:
     """word2vec text: the header ``n d``, then one ``word v1 ... vd`` line per word."""
     values = _checked(words, vectors)
 
@@ -43,8 +47,10 @@ def write_word2vec_text(path: str | os.PathLike, words: Sequence[str], vectors: 
     _write_atomically(path, compress, write)
 
 
-def write_word2vec_binary(path: str | os.PathLike, words: Sequence[str], vectors: np.ndarray, *, compress: bool = False) -> None:
-    """word2vec binary: the header ``n d\\n``, then per word its UTF-8 bytes, a space, d float32 (little-endian), ``\\n``."""
+def write_word2vec_binary(
+    path: str | os.PathLike, words: Sequence[str], vectors: np.ndarray, *, compress: bool = False
+) -> None:
+    """word2vec binary: the header ``n d\\n``; per word its UTF-8 bytes, a space, d little-endian float32, ``\\n``."""
     values = _checked(words, vectors).astype("<f4")
 
     def write(out: BinaryIO) -> None:

@@ -87,7 +87,7 @@ class VectorCoverage:
         )
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class LoadedVectors:
     """The rows read from a vector file, and what the reading found out."""
 

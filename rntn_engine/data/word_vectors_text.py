@@ -238,9 +238,11 @@ class TextRowReader:
         joined = b" ".join([block[word_ends[i] + 1 : content_ends[i]] for i in picked])
         values = _parse_numbers(joined, len(picked) * self.dim)
         if values is None:  # something did not parse or is not finite: find it row by row
-            values = np.concatenate(
-                [self._parse_row(block[starts[i] : content_ends[i]], word_ends[i] - starts[i], self.line_no + i) for i in picked]
-            )
+            rows = [
+                self._parse_row(block[starts[i] : content_ends[i]], word_ends[i] - starts[i], self.line_no + i)
+                for i in picked
+            ]
+            values = np.concatenate(rows)
         keeper.add(values.reshape(len(picked), self.dim))
 
     # --- slow paths: locating problems -----------------------------------------------------------
@@ -258,7 +260,9 @@ class TextRowReader:
                     self.path, f"expected a number, {found}", line=line_no, column=column_of(content, pos)
                 ) from None
             if not np.isfinite(_to_float32(values[j : j + 1]))[0]:
-                what = "is not a finite number" if not np.isfinite(values[j]) else "is beyond the float32 range (about 3.4e38)"
+                what = "is not a finite number"
+                if np.isfinite(values[j]):
+                    what = "is beyond the float32 range (about 3.4e38)"
                 raise VectorFileError(
                     self.path, f"value {quote(token)} {what}", line=line_no, column=column_of(content, pos)
                 )

@@ -77,3 +77,74 @@ def reference_backward(L, W, b, V, Ws, bs, word, left, right, label, scale, P, Y
         E[left[i]] += e_x[:d]
         E[right[i]] += e_x[d:]
     return grads
+
+
+# --- matrix-vector model (MV-RNN; Socher, Huval, Manning & Ng 2012), twin of compose_matrix_vector.py ---
+#
+#    leaf:      p = L[w],  P = LM[w]
+#    internal:  left (a, A), right (b, B):  x = [B a ; A b];  p = tanh(W x + bias);  P = WM [A ; B]
+#    all nodes: y = softmax(Ws p + bs);  loss = scale * sum_labelled -log y[t]
+#
+#    e = Ws^T ds + (error from the parent);  EP = error from the parent (zero at a root)
+#    internal: delta = e * (1 - p^2);  dW += delta x^T;  dbias += delta;  g, h = W^T delta split in halves
+#              e_a += B^T g;  EP_B += g a^T;  e_b += A^T h;  EP_A += h b^T
+#              dWM += EP [A ; B]^T;  [EP_A ; EP_B] += WM^T EP
+#    leaf:     dL[w] += e;  dLM[w] += EP
+
+
+def reference_forward_mv(L, LM, W, b, WM, Ws, bs, word, left, right, label, scale):
+    """Returns (P (N, d), PM (N, d, d), Y (N, C), loss) of the MV-RNN."""
+    N = word.shape[0]
+    d = L.shape[1]
+    P = np.zeros((N, d), dtype=L.dtype)
+    PM = np.zeros((N, d, d), dtype=L.dtype)
+    Y = np.zeros((N, Ws.shape[0]), dtype=L.dtype)
+    loss = 0.0
+    for i in range(N):
+        if left[i] < 0:
+            P[i], PM[i] = L[word[i]], LM[word[i]]
+        else:
+            a, A, b_, B = P[left[i]], PM[left[i]], P[right[i]], PM[right[i]]
+            P[i] = np.tanh(W @ np.concatenate([B @ a, A @ b_]) + b)
+            PM[i] = WM @ np.vstack([A, B])
+        s = Ws @ P[i] + bs
+        Y[i] = np.exp(s - s.max()) / np.exp(s - s.max()).sum()
+        loss += -np.log(Y[i, label[i]]) if label[i] >= 0 else 0.0
+    return P, PM, Y, scale * loss
+
+
+def reference_backward_mv(L, LM, W, b, WM, Ws, bs, word, left, right, label, scale, P, PM, Y):
+    """Returns a dict of MV-RNN gradients with keys L, LM, W, b, WM, Ws, bs."""
+    N, d = P.shape
+    grads = {name: np.zeros_like(value) for name, value in
+             (("L", L), ("LM", LM), ("W", W), ("b", b), ("WM", WM), ("Ws", Ws), ("bs", bs))}
+    E = np.zeros((N, d), dtype=P.dtype)  # error reaching each node vector from its parent
+    EM = np.zeros((N, d, d), dtype=P.dtype)  # error reaching each node matrix from its parent
+    for i in range(N - 1, -1, -1):  # reverse post-order: parents before children
+        ds = np.zeros(Ws.shape[0], dtype=P.dtype)
+        if label[i] >= 0:
+            ds = scale * Y[i].copy()
+            ds[label[i]] -= scale
+        grads["Ws"] += np.outer(ds, P[i])
+        grads["bs"] += ds
+        e = Ws.T @ ds + E[i]
+        if left[i] < 0:
+            grads["L"][word[i]] += e
+            grads["LM"][word[i]] += EM[i]
+            continue
+        l, r = left[i], right[i]
+        a, A, b_, B = P[l], PM[l], P[r], PM[r]
+        delta = e * (1.0 - P[i] * P[i])
+        grads["W"] += np.outer(delta, np.concatenate([B @ a, A @ b_]))
+        grads["b"] += delta
+        e_x = W.T @ delta
+        g, h = e_x[:d], e_x[d:]
+        E[l] += B.T @ g
+        EM[r] += np.outer(g, a)
+        E[r] += A.T @ h
+        EM[l] += np.outer(h, b_)
+        grads["WM"] += EM[i] @ np.vstack([A, B]).T
+        e_AB = WM.T @ EM[i]
+        EM[l] += e_AB[:d]
+        EM[r] += e_AB[d:]
+    return grads

@@ -7,8 +7,13 @@ Legend: |V| vocabulary size, d vector size, D = 2d, C classes.
     W     (d, D)       composition matrix                        compose
     b     (d,)         composition bias                          (none)
     V     (d, D, D)    composition tensor (RNTN only)            tensor
+    LM    (|V|, d, d)  word matrices, row 0 = unknown word       word_matrices   (MV-RNN only)
+    WM    (d, D)       matrix composition: P = WM [P_l ; P_r]    compose         (MV-RNN only)
     Ws    (C, d)       classifier weights                        classifier
     bs    (C,)         classifier bias                           (none)
+
+Models: "rnn" (L, W, b, Ws, bs), "rntn" (+ V; Socher et al. 2013), "mvrnn" (+ LM, WM;
+Socher, Huval, Manning & Ng 2012).
 
 Because every array is a view of one contiguous buffer, the optimiser and the
 checkpoint writer treat all of them as one vector; a gradient is the same
@@ -19,7 +24,19 @@ Initialisation (seeded, documented in README):
     W  ~ 0.5 [I I] + U(-r, r),  r = 1/sqrt(D)   (starts near the average of the children)
     V  ~ U(-1/D, 1/D)                           (small: the model starts close to the RNN)
     Ws ~ U(-s, s),  s = sqrt(6 / (C + d))        (Glorot & Bengio 2010)
+    LM[w] = I + U(-0.01, 0.01) elementwise      (near the identity: x = [B a ; A b] starts as [a ; b])
+    WM ~ 0.5 [I I] + U(-r, r),  r = 1/sqrt(D)   (like W: a node's matrix starts near the children's average)
     b, bs = 0
+The draws come from one generator in this order: L, W, V (RNTN), Ws, then LM (word by
+word, row order) and WM (MV-RNN). The MV-RNN's arrays are drawn after all the others,
+so the arrays the models share (L, W, Ws) are identical for one seed, and the RNN and
+RNTN draws are the same as before the MV-RNN existed. Socher et al. 2012 start the word
+matrices at the identity plus small noise (from memory); the width 0.01 is our choice.
+
+Memory: an MV-RNN holds |V| d^2 numbers in LM alone (100,000 words at d = 25 are 62.5
+million per copy, and training keeps three copies: parameters, gradient, AdaGrad sums).
+:func:`check_memory` refuses a model whose training state would exceed a limit, with the
+estimate and what to change.
 """
 
 from __future__ import annotations
@@ -28,11 +45,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
-MODELS = ("rnn", "rntn")
+MODELS = ("rnn", "rntn", "mvrnn")
 DTYPES = {"float32": np.float32, "float64": np.float64}
 
 # which L2 group regularises each parameter (None: not regularised)
-L2_GROUP = {"L": "words", "W": "compose", "b": None, "V": "tensor", "Ws": "classifier", "bs": None}
+L2_GROUP = {"L": "words", "W": "compose", "b": None, "V": "tensor", "LM": "word_matrices", "WM": "compose",
+            "Ws": "classifier", "bs": None}
+
+WORD_MATRIX_NOISE = 0.01  # LM[w] = I + U(-WORD_MATRIX_NOISE, WORD_MATRIX_NOISE) at initialisation
 
 
 def parameter_shapes(model: str, vocab_size: int, dim: int, num_classes: int) -> dict[str, tuple[int, ...]]:
@@ -43,6 +63,9 @@ def parameter_shapes(model: str, vocab_size: int, dim: int, num_classes: int) ->
     shapes = {"L": (vocab_size, d), "W": (d, D), "b": (d,)}
     if model == "rntn":
         shapes["V"] = (d, D, D)
+    if model == "mvrnn":
+        shapes["LM"] = (vocab_size, d, d)
+        shapes["WM"] = (d, D)
     shapes["Ws"] = (num_classes, d)
     shapes["bs"] = (num_classes,)
     return shapes
@@ -52,7 +75,7 @@ def parameter_shapes(model: str, vocab_size: int, dim: int, num_classes: int) ->
 class ModelShape:
     """Everything that fixes the size and meaning of the parameter buffer."""
 
-    model: str  # "rnn" or "rntn"
+    model: str  # "rnn", "rntn" or "mvrnn"
     vocab_size: int  # rows of L, including the unknown word
     dim: int  # d, the size of every node vector
     num_classes: int  # C
@@ -130,4 +153,41 @@ def init_parameters(shape: ModelShape, rng: np.random.Generator) -> Parameters:
         params.V[:] = rng.uniform(-1.0 / D, 1.0 / D, size=(d, D, D)).astype(dtype)
     s = np.sqrt(6.0 / (C + d))
     params.Ws[:] = rng.uniform(-s, s, size=(C, d)).astype(dtype)
+    if "LM" in params.views:  # drawn after every draw of the RNN and RNTN, which therefore stay as they were
+        rows = max(1, (1 << 20) // (d * d))  # words per draw: the float64 temporaries stay near 8 MiB
+        for a in range(0, shape.vocab_size, rows):
+            z = min(a + rows, shape.vocab_size)
+            noise = rng.uniform(-WORD_MATRIX_NOISE, WORD_MATRIX_NOISE, size=(z - a, d, d))
+            params.LM[a:z] = np.eye(d) + noise  # computed in float64, rounded once to the parameter dtype
+        params.WM[:] = (0.5 * np.hstack([np.eye(d), np.eye(d)]) + rng.uniform(-r, r, size=(d, D))).astype(dtype)
     return params
+
+
+class MemoryLimitError(ValueError):
+    """The training state of a model (parameters, gradient, AdaGrad sums) would exceed the memory limit."""
+
+
+def format_bytes(n: float) -> str:
+    """``n`` bytes as MiB below one GiB, else GiB (binary units)."""
+    return f"{n / 2**30:.2f} GiB" if n >= 2**30 else f"{n / 2**20:.1f} MiB"
+
+
+def check_memory(shape: ModelShape, limit_bytes: float) -> int:
+    """The estimated training memory of ``shape`` in bytes; MemoryLimitError if above ``limit_bytes``.
+
+    The estimate is :meth:`ModelShape.training_bytes`: parameters + gradient + AdaGrad sums
+    (the objective's per-chunk workspaces, a few MiB for usual batches, are not counted).
+    ``limit_bytes <= 0`` means no limit.
+    """
+    need = shape.training_bytes()
+    if limit_bytes <= 0 or need <= limit_bytes:
+        return need
+    shapes = shape.shapes()
+    largest = max(shapes, key=lambda name: int(np.prod(shapes[name])))
+    share = int(np.prod(shapes[largest])) / shape.count()
+    raise MemoryLimitError(
+        f"{shape.model} with d={shape.dim} and a vocabulary of {shape.vocab_size:,} words needs about "
+        f"{format_bytes(need)} for parameters, gradient and AdaGrad sums ({shape.count():,} {shape.dtype} "
+        f"parameters, {share:.0%} of them in {largest} {shapes[largest]}), above the limit of "
+        f"{format_bytes(limit_bytes)}: raise --min-count for a smaller vocabulary, lower --dim, "
+        f"or raise the limit with --max-memory-gb")

@@ -1,0 +1,66 @@
+"""`rntn report RUN_DIR`: PNG figures of a run (needs the optional matplotlib extra)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated, Optional
+
+import numpy as np
+import typer
+
+from rntn_engine.cli.app_exit import EXIT_BAD_INPUT
+
+
+def report(
+    run_dir: Annotated[Path, typer.Argument(help="Run directory made by `rntn train`.")],
+    out_dir: Annotated[Optional[Path], typer.Option("--out-dir", help="Where to write the PNG files. [default: RUN_DIR/report]")] = None,
+    treebank: Annotated[Optional[Path], typer.Option("--treebank", "-t", help="Treebank for the confusion matrix. [default: the run's dev file]")] = None,
+) -> None:
+    """Write learning curves (training loss and dev scores over steps) and the confusion matrix of the
+    best checkpoint (all nodes) as PNG files. Needs matplotlib: pip install 'rntn_engine[plot]'."""
+    from rntn_engine.data.treebank_reader import read_trees
+    from rntn_engine.run.checkpoint_evaluation import detail_report
+    from rntn_engine.run.checkpoints import load_checkpoint
+    from rntn_engine.run.report_figures import MissingPlotLibrary, plot_confusion, plot_learning_curves, require_matplotlib
+
+    try:
+        require_matplotlib()
+    except MissingPlotLibrary as exc:
+        typer.echo(f"rntn: {exc}", err=True)
+        raise typer.Exit(EXIT_BAD_INPUT)
+    newest = load_latest_valid_checkpoint_readonly(run_dir)
+    out_dir = out_dir or run_dir / "report"
+    out_dir.mkdir(parents=True, exist_ok=True)
+    config = newest.config
+    written = [plot_learning_curves(newest.metrics, out_dir / "learning_curves.png",
+                                    f"{config.model} d={config.dim}: {run_dir.name}")]
+    best_name = newest.state.get("best_checkpoint")
+    best_path = run_dir / best_name if best_name and (run_dir / best_name).exists() else Path(newest.path)
+    book = treebank or (Path(config.dev_file) if config.dev_file else None)
+    if book is None:
+        typer.echo("no dev file in the run and no --treebank: confusion matrix skipped", err=True)
+    else:
+        best = load_checkpoint(best_path)
+        trees = read_trees(book, num_classes=config.num_classes, binarise=config.binarise)
+        detail = detail_report(best, trees)
+        written.append(plot_confusion(np.array(detail["all_nodes"]["confusion"]), out_dir / "confusion_best.png",
+                                      f"best checkpoint {best_path.name}\non {book.name}, all nodes: "
+                                      f"fine-grained accuracy {detail['scores']['fine_all']:.3f}"))
+    for path in written:
+        typer.echo(f"wrote {path}")
+
+
+def load_latest_valid_checkpoint_readonly(run_dir: Path):
+    """The newest checkpoint that verifies (reading only: nothing is renamed or written)."""
+    from rntn_engine.data.checkpoint_file import CheckpointError
+    from rntn_engine.run.checkpoints import load_checkpoint
+    from rntn_engine.run.run_directory import list_checkpoints
+    from rntn_engine.run.trainer import stored_config
+
+    stored_config(run_dir)  # a clear error if this is not a run directory
+    for candidate in reversed(list_checkpoints(run_dir)):
+        try:
+            return load_checkpoint(candidate.path)
+        except CheckpointError as exc:
+            typer.echo(f"warning: {exc}; using the previous checkpoint", err=True)
+    raise typer.BadParameter(f"{run_dir}: no valid checkpoint to report on", param_hint="RUN_DIR")

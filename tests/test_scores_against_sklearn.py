@@ -1,0 +1,59 @@
+"""Our scores equal scikit-learn's (an independent, general-purpose metrics library) on the same labels."""
+
+import numpy as np
+import pytest
+from sklearn.metrics import accuracy_score, confusion_matrix as sk_confusion, precision_recall_fscore_support
+
+from rntn_engine.run.scores import LabelScheme, accuracy, binary_accuracy, confusion_matrix, per_class_scores
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_accuracy_confusion_and_per_class_scores_match_scikit_learn(seed):
+    rng = np.random.default_rng(seed)
+    C = 5
+    gold = rng.integers(-1, C, size=400)  # -1: unlabelled, left out
+    predicted = np.where(rng.random(400) < 0.6, np.maximum(gold, 0), rng.integers(0, C, size=400))
+    if seed == 4:
+        predicted[predicted == 3] = 2  # a class never predicted: precision undefined -> 0 in both
+    keep = gold >= 0
+    # scikit-learn reference
+    assert accuracy(gold, predicted) == pytest.approx(accuracy_score(gold[keep], predicted[keep]), abs=1e-15)
+    ours = confusion_matrix(gold, predicted, C)
+    assert np.array_equal(ours, sk_confusion(gold[keep], predicted[keep], labels=list(range(C))))
+    p, r, f, s = precision_recall_fscore_support(gold[keep], predicted[keep], labels=list(range(C)),
+                                                 zero_division=0)
+    mine = per_class_scores(ours)
+    np.testing.assert_allclose(mine["precision"], p, rtol=0, atol=1e-15)
+    np.testing.assert_allclose(mine["recall"], r, rtol=0, atol=1e-15)
+    np.testing.assert_allclose(mine["f1"], f, rtol=0, atol=1e-12)
+    assert np.array_equal(mine["support"], s)
+
+
+def test_binary_accuracy_matches_scikit_learn_on_the_two_sided_view():
+    rng = np.random.default_rng(3)
+    C = 5
+    gold = rng.integers(-1, C, size=300)
+    probs = rng.dirichlet(np.ones(C), size=300)
+    scheme = LabelScheme.for_classes(C)
+    keep = (gold >= 0) & (gold != 2)
+    gold_side = gold[keep] >= 3
+    predicted_side = probs[keep][:, 3:].sum(1) > probs[keep][:, :2].sum(1)
+    # scikit-learn reference on the side labels
+    assert binary_accuracy(gold, probs, scheme) == pytest.approx(accuracy_score(gold_side, predicted_side))
+
+
+@pytest.mark.parametrize("C,neg,neutral,pos", [(5, [0, 1], 2, [3, 4]), (3, [0], 1, [2]), (2, [0], None, [1]),
+                                               (4, [0, 1], None, [2, 3])])
+def test_default_label_schemes(C, neg, neutral, pos):
+    scheme = LabelScheme.for_classes(C)
+    assert scheme.neutral == neutral
+    assert np.flatnonzero(scheme.negative_mask()).tolist() == neg
+    assert np.flatnonzero(scheme.positive_mask()).tolist() == pos
+
+
+def test_binary_accuracy_hand_example():
+    # computed here by hand: nodes (gold, P): (0, neg wins) right, (4, pos wins) right, (2, -) left out,
+    # (1, pos wins) wrong, (-1, -) left out  ->  2 / 3
+    probs = np.array([[.5, .2, .1, .1, .1], [.1, .1, .1, .2, .5], [.2] * 5, [.1, .1, .2, .3, .3], [.2] * 5])
+    gold = np.array([0, 4, 2, 1, -1])
+    assert binary_accuracy(gold, probs, LabelScheme.for_classes(5)) == pytest.approx(2 / 3)
