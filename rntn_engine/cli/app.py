@@ -59,6 +59,7 @@ def _register_commands() -> None:
     app.command("stats")(stats_command.stats)
     from rntn_engine.cli import (
         evaluate_command,
+        export_vectors_command,
         gradcheck_command,
         inspect_command,
         predict_command,
@@ -75,6 +76,7 @@ def _register_commands() -> None:
     app.command("evaluate")(evaluate_command.evaluate)
     app.command("predict")(predict_command.predict)
     app.command("report")(report_command.report)
+    app.command("export-vectors")(export_vectors_command.export_vectors)
     app.command("gradcheck")(gradcheck_command.gradcheck)
 
 

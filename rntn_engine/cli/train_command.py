@@ -16,7 +16,7 @@ def train(
     train_file: Annotated[Optional[Path], typer.Option("--train-file", help="Training treebank: bracketed trees, one per line.")] = None,
     dev_file: Annotated[Optional[Path], typer.Option("--dev-file", help="Treebank scored after every epoch.")] = None,
     model: Annotated[Optional[str], typer.Option("--model", help=f"Model: rnn (matrix composition) or rntn (tensor + matrix). [default: {_D.model}]")] = None,
-    dim: Annotated[Optional[int], typer.Option("--dim", help=f"Size d of word and phrase vectors. [default: {_D.dim}]")] = None,
+    dim: Annotated[Optional[int], typer.Option("--dim", help="Size d of word and phrase vectors. [default: the --vectors file's, else 25]")] = None,
     num_classes: Annotated[Optional[int], typer.Option("--num-classes", help=f"Number of classes C; labels are 0..C-1. [default: {_D.num_classes}]")] = None,
     epochs: Annotated[Optional[int], typer.Option("--epochs", help=f"Passes over the training trees. [default: {_D.epochs}]")] = None,
     batch_size: Annotated[Optional[int], typer.Option("--batch-size", help=f"Trees per minibatch. [default: {_D.batch_size}]")] = None,
@@ -34,6 +34,11 @@ def train(
     dtype: Annotated[Optional[str], typer.Option("--dtype", help=f"Arithmetic: float32 or float64. [default: {_D.dtype}]")] = None,
     threads: Annotated[Optional[int], typer.Option("--threads", help="Threads that run minibatch chunks; results do not depend on it. [default: 1]")] = None,
     grad_chunks: Annotated[Optional[int], typer.Option("--grad-chunks", help=f"Fixed number of pieces each minibatch is split into; parallelism up to this many threads. [default: {_D.grad_chunks}]")] = None,
+    vectors: Annotated[Optional[Path], typer.Option("--vectors", help="Start word vectors from this file: GloVe text, word2vec text or binary, plain or gzip (detected).")] = None,
+    vectors_format: Annotated[Optional[str], typer.Option("--vectors-format", help="Force the vector file format: auto, glove, word2vec-text or word2vec-binary. [default: auto]")] = None,
+    vectors_encoding_errors: Annotated[Optional[str], typer.Option("--vectors-encoding-errors", help="Undecodable bytes in the vector file: strict (error with location) or replace. [default: strict]")] = None,
+    freeze_vectors: Annotated[Optional[bool], typer.Option("--freeze-vectors/--train-vectors", help="Keep the (pretrained) word vectors fixed during training. [default: train them]")] = None,
+    extend_vocabulary: Annotated[Optional[int], typer.Option("--extend-vocabulary", help="Add the vector file's first N words (its most frequent) to the vocabulary. [default: 0]")] = None,
     run_dir: Annotated[Optional[Path], typer.Option("--run-dir", help="Output directory. [default: checkpoints/<model>-d<dim>-seed<seed>]")] = None,
     checkpoint_every_steps: Annotated[Optional[int], typer.Option("--checkpoint-every-steps", help="Also checkpoint every N steps (0: off). [default: 0]")] = None,
     checkpoint_every_minutes: Annotated[Optional[float], typer.Option("--checkpoint-every-minutes", help=f"Also checkpoint when this many minutes passed since the last one (0: off). [default: {_D.checkpoint_every_minutes}]")] = None,
@@ -64,11 +69,14 @@ def train(
         "binarise": binarise, "seed": seed, "dtype": dtype, "threads": threads, "grad_chunks": grad_chunks,
         "run_dir": run_dir, "checkpoint_every_steps": checkpoint_every_steps,
         "checkpoint_every_minutes": checkpoint_every_minutes, "keep_checkpoints": keep_checkpoints,
-        "best_metric": best_metric, "patience": patience, "time_limit": time_limit,
+        "best_metric": best_metric, "patience": patience, "time_limit": time_limit, "vectors_file": vectors,
+        "vectors_format": vectors_format, "vectors_encoding_errors": vectors_encoding_errors,
+        "freeze_vectors": freeze_vectors, "extend_vocabulary": extend_vocabulary,
     }
     given = {k: (str(v) if isinstance(v, Path) else v) for k, v in flags.items() if v is not None}
     config = config_from_mapping(given, config)
     if print_config:
+        config.validate()
         typer.echo(config.to_toml(), nl=False)
         return
     config.validate()

@@ -1,18 +1,18 @@
 """Streaming reader of text word vectors (GloVe, and word2vec text after its header).
 
-Legend: d values per row, B bytes per block.
+Legend: d values per row.
 
 A row is ``word v1 ... vd``: fields separated by single ASCII spaces; trailing
 spaces, tabs and a CR before the line feed are ignored. The file is read in
 blocks of whole lines (:data:`BLOCK_BYTES`) and each block is checked with a few
 NumPy passes, never a Python loop over bytes:
 
-1. the block must be UTF-8 (one ``bytes.decode``; the first bad byte is located
-   by line and column), unless ``encoding_errors="replace"``;
+1. the block must be UTF-8 (``bytes.isascii``, else one ``bytes.decode``; the
+   first bad byte is located by line and column), unless ``encoding_errors="replace"``;
 2. line ends, and spaces, are found with ``np.flatnonzero``; the spaces inside
    each line are counted with ``np.searchsorted``;
 3. every row must hold a non-empty word and exactly d spaces (d values);
-4. only then are the words cut out and looked up, and the values of the rows
+4. only then are the words cut out and looked up (as UTF-8 bytes), and the values of the rows
    to keep are parsed at once (``np.fromstring`` on the joined value texts), cast
    to float32 and checked to be finite. If that fails, the rows are parsed
    again one by one with ``float()`` to find the bad value's line and column.
@@ -63,7 +63,7 @@ class TextRowReader:
         self.dim = start.dim
         self.line_no = start.first_row_line  # line number of the next row
         self.rows = 0  # rows read so far
-        self.offset = start.rest_offset  # file offset of the next unread byte of `pending`
+        self.offset = start.rest_offset  # file offset just past the last row read
         self.pending = start.rest
         # the wanted words as UTF-8 bytes (a word with a lone surrogate can match no UTF-8 text)
         self.byte_keys = None if keeper.keys is None else {k.encode("utf-8", "surrogatepass") for k in keeper.keys}

@@ -43,7 +43,7 @@ class TrainConfig:
     train_file: str = ""  # treebank to train on (bracketed trees, one per line)
     dev_file: str = ""  # treebank scored after every epoch ("" = none)
     model: str = "rntn"  # (shape) "rnn" or "rntn"
-    dim: int = 25  # (shape) d, size of word and phrase vectors
+    dim: int = 0  # (shape) d, size of word and phrase vectors; 0 = the vector file's, or 25 without one
     num_classes: int = 5  # (shape) C; labels are 0..C-1
     epochs: int = 20  # passes over the training trees
     batch_size: int = 27  # trees per minibatch (25-30 is common practice)
@@ -61,6 +61,11 @@ class TrainConfig:
     dtype: str = "float32"  # (result) float32 or float64 arithmetic
     grad_chunks: int = 2  # (result) fixed pieces each minibatch is split into; results do not depend on --threads
     threads: int = 1  # worker threads running chunks; never changes results
+    vectors_file: str = ""  # pretrained word vectors (GloVe text, word2vec text or binary, plain or gzip)
+    vectors_format: str = "auto"  # auto, glove, word2vec-text or word2vec-binary
+    vectors_encoding_errors: str = "strict"  # undecodable bytes in the vector file: strict (error) or replace
+    freeze_vectors: bool = False  # (result) keep the word vectors L fixed during training
+    extend_vocabulary: int = 0  # (shape) add the vector file's first N words to the vocabulary
     run_dir: str = ""  # output directory ("" = checkpoints/<model>-d<dim>-seed<seed>)
     checkpoint_every_steps: int = 0  # also checkpoint every this many steps (0 = only by time and epoch)
     checkpoint_every_minutes: float = 10.0  # also checkpoint when this much wall time passed since the last
@@ -76,7 +81,13 @@ class TrainConfig:
 
         need(bool(self.train_file), "a training treebank is required (--train-file)")
         need(self.model in MODELS, f"--model must be one of {', '.join(MODELS)}, got {self.model!r}")
-        need(self.dim >= 1, f"--dim must be at least 1, got {self.dim}")
+        need(self.dim >= 0, f"--dim must be at least 1, got {self.dim}")
+        need(self.vectors_format in ("auto", "glove", "word2vec-text", "word2vec-binary"),
+             "--vectors-format must be auto, glove, word2vec-text or word2vec-binary")
+        need(self.vectors_encoding_errors in ("strict", "replace"), "--vectors-encoding-errors must be strict or replace")
+        need(self.extend_vocabulary >= 0, "--extend-vocabulary must be 0 or more")
+        need(not (self.extend_vocabulary or self.freeze_vectors) or bool(self.vectors_file),
+             "--extend-vocabulary and --freeze-vectors need --vectors")
         need(self.num_classes >= 2, f"--num-classes must be at least 2, got {self.num_classes}")
         need(self.epochs >= 0, f"--epochs must be 0 or more, got {self.epochs}")
         need(self.batch_size >= 1, f"--batch-size must be at least 1, got {self.batch_size}")
@@ -105,7 +116,7 @@ class TrainConfig:
     def resolved_run_dir(self) -> Path:
         if self.run_dir:
             return Path(self.run_dir)
-        return Path("checkpoints") / f"{self.model}-d{self.dim}-seed{self.seed}"
+        return Path("checkpoints") / f"{self.model}-d{self.dim or 'auto'}-seed{self.seed}"
 
     def to_dict(self) -> dict[str, Any]:
         return dataclasses.asdict(self)

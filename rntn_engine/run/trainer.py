@@ -63,6 +63,7 @@ from rntn_engine.run.run_directory import (
     rewrite_metrics_log,
     write_json_atomic,
 )
+from rntn_engine.run.pretrained_start import extend_with_vector_words, initial_word_vectors, resolve_dim
 from rntn_engine.run.run_errors import RunDirectoryError, TrainingError
 from rntn_engine.run.scores import accuracy, majority_class
 from rntn_engine.run.stop_signals import EXIT_STOPPED_RESUMABLE, StopRequest, parse_duration
@@ -125,10 +126,15 @@ def data_file_hashes(config: TrainConfig) -> dict[str, str]:
 
 
 def load_training_data(config: TrainConfig, vocabulary: Vocabulary | None = None) -> TrainingData:
-    """Read the treebanks (errors point at file:line:column), build or reuse the vocabulary, encode."""
+    """Read the treebanks (errors point at file:line:column), build or reuse the vocabulary, encode.
+
+    A new vocabulary is built from the training trees, then extended with the vector
+    file's first words when ``extend_vocabulary`` asks for it (run/pretrained_start.py).
+    """
     train_trees = read_trees(config.train_file, num_classes=config.num_classes, binarise=config.binarise)
     if vocabulary is None:
-        vocabulary = build_vocabulary(train_trees, config.min_count, config.lowercase)
+        vocabulary = extend_with_vector_words(config, build_vocabulary(train_trees, config.min_count,
+                                                                       config.lowercase))
     dev = None
     if config.dev_file:
         dev_trees = read_trees(config.dev_file, num_classes=config.num_classes, binarise=config.binarise)
@@ -238,13 +244,16 @@ class Trainer:
         data = load_training_data(config, checkpoint.vocabulary if checkpoint else None)
         bank = data.train
         shape = ModelShape(config.model, len(data.vocabulary), config.dim, config.num_classes, config.dtype)
+        frozen = ("L",) if config.freeze_vectors else ()
         if checkpoint is None:
             params = init_parameters(shape, np.random.default_rng(config.seed))
-            optimiser = AdaGrad(params, config.lr, config.adagrad_eps)
+            if config.vectors_file:
+                params.L[:] = initial_word_vectors(config, data.vocabulary, bank, params.flat.dtype, self.echo)
+            optimiser = AdaGrad(params, config.lr, config.adagrad_eps, frozen)
             state, history = RunState(), []
         else:
             params = checkpoint.params
-            optimiser = AdaGrad(params, config.lr, config.adagrad_eps)
+            optimiser = AdaGrad(params, config.lr, config.adagrad_eps, frozen)
             optimiser.sums.flat[:] = checkpoint.adagrad_sums.flat
             state, history = RunState.from_dict(checkpoint.state), list(checkpoint.metrics)
             self.last_saved_step = state.step
@@ -341,6 +350,9 @@ class Trainer:
                 self.heartbeat(state, bank.n_trees, steps_per_epoch, rate, force=True)
                 if state.finished:
                     break
+            if not state.finished:  # no epoch to run (--epochs 0, or lowered on resume)
+                state.finished, state.finish_reason = True, "all epochs done"
+                self.save(params, optimiser, state, history, data)
         finally:
             stop.uninstall()
             objective.close()
@@ -383,6 +395,7 @@ def start_training(config: TrainConfig, echo: Callable[[str], None] = print,
                    show_progress: bool | None = None) -> int:
     """`rntn train`: a new run in a new or empty run directory."""
     config.validate()
+    resolve_dim(config)
     run_dir = prepare_new_run_directory(config)
     with RunLock(run_dir):
         (run_dir / CONFIG_FILE).write_text(config.to_toml(), encoding="utf-8")
