@@ -39,7 +39,7 @@ def test_adagrad_frozen_group_is_not_updated():
     assert np.all(params.L == 1.0) and np.all(params.W < 1.0)
 
 
-@pytest.mark.parametrize("model", ["rnn", "rntn"])
+@pytest.mark.parametrize("model", ["rnn", "rntn", "mvrnn"])
 @pytest.mark.parametrize("dtype", ["float32", "float64"])
 def test_gradient_bits_do_not_depend_on_thread_count(model, dtype):
     results = []

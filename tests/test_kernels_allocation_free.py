@@ -36,7 +36,7 @@ def run_probe(model):
 
 
 def test_allocations_do_not_grow_with_nodes_or_levels():
-    for model in ("rnn", "rntn"):
+    for model in ("rnn", "rntn", "mvrnn"):
         counts = run_probe(model)
         nodes = [c[0] for c in counts]
         assert nodes[0] < nodes[1] < nodes[2], counts

@@ -10,7 +10,7 @@ from rntn_engine.cli.app_exit import EXIT_CHECK_FAILED
 
 
 def gradcheck(
-    model: Annotated[str, typer.Option("--model", help="Model to check: rnn or rntn.")] = "rntn",
+    model: Annotated[str, typer.Option("--model", help="Model to check: rnn, rntn or mvrnn.")] = "rntn",
     dim: Annotated[int, typer.Option("--dim", min=1, max=16, help="Vector size d of the random model.")] = 4,
     trees: Annotated[int, typer.Option("--trees", min=1, max=100, help="Number of random trees.")] = 8,
     max_words: Annotated[int, typer.Option("--max-words", min=1, max=40, help="Longest random sentence.")] = 7,

@@ -15,6 +15,9 @@ the forward pass and in reverse post-order for the backward pass.
     internal: delta = e * (1 - p^2);  dW += delta x^T;  db += delta;  dV[k] += delta_k x x^T
               e_x = W^T delta + sum_k delta_k (V[k] + V[k]^T) x;  left gets e_x[:d], right e_x[d:]
     leaf:     dL[w] += e
+
+The MV-RNN's twin (reference_forward_mv, reference_backward_mv: Socher, Huval, Manning &
+Ng 2012; numba kernels in compose_matrix_vector.py) follows at the end, with its equations.
 """
 
 from __future__ import annotations
@@ -108,8 +111,10 @@ def reference_forward_mv(L, LM, W, b, WM, Ws, bs, word, left, right, label, scal
             P[i] = np.tanh(W @ np.concatenate([B @ a, A @ b_]) + b)
             PM[i] = WM @ np.vstack([A, B])
         s = Ws @ P[i] + bs
-        Y[i] = np.exp(s - s.max()) / np.exp(s - s.max()).sum()
-        loss += -np.log(Y[i, label[i]]) if label[i] >= 0 else 0.0
+        y = np.exp(s - s.max())
+        Y[i] = y / y.sum()
+        if label[i] >= 0:
+            loss += -np.log(Y[i, label[i]])
     return P, PM, Y, scale * loss
 
 
@@ -120,11 +125,9 @@ def reference_backward_mv(L, LM, W, b, WM, Ws, bs, word, left, right, label, sca
              (("L", L), ("LM", LM), ("W", W), ("b", b), ("WM", WM), ("Ws", Ws), ("bs", bs))}
     E = np.zeros((N, d), dtype=P.dtype)  # error reaching each node vector from its parent
     EM = np.zeros((N, d, d), dtype=P.dtype)  # error reaching each node matrix from its parent
+    onehot = np.eye(Ws.shape[0], dtype=P.dtype)
     for i in range(N - 1, -1, -1):  # reverse post-order: parents before children
-        ds = np.zeros(Ws.shape[0], dtype=P.dtype)
-        if label[i] >= 0:
-            ds = scale * Y[i].copy()
-            ds[label[i]] -= scale
+        ds = scale * (Y[i] - onehot[label[i]]) if label[i] >= 0 else 0.0 * Y[i]  # softmax error, 0 if unlabelled
         grads["Ws"] += np.outer(ds, P[i])
         grads["bs"] += ds
         e = Ws.T @ ds + E[i]

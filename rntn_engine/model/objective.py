@@ -5,18 +5,27 @@ For a minibatch of B trees (DESIGN.md):
     J = (1/B) * sum over labelled nodes of -log y[t]
         + sum over groups g of (lambda_g / 2) * ||theta_g||^2
 
-with groups words (L), compose (W), tensor (V), classifier (Ws); biases are not
-regularised. The L2 term is part of *every* minibatch objective and is applied
-densely: every row of L receives lambda_words * L[w] each step, whether or not the
-minibatch contains word w. This is the exact gradient of J, so AdaGrad sees it
-too; it costs one pass over L per step (a lazy scheme cannot be exact under
+with groups words (L), compose (W, and WM of the MV-RNN), tensor (V), word_matrices
+(LM of the MV-RNN), classifier (Ws); biases are not regularised. The L2 term is part
+of *every* minibatch objective and is applied densely: every row of L receives
+lambda_words * L[w] each step (every LM[w] lambda_word_matrices * LM[w]), whether or
+not the minibatch contains word w. This is the exact gradient of J, so AdaGrad sees
+it too; it costs one pass over L (and LM) per step, in blocks of L2_BLOCK numbers so
+that no temporary grows with the vocabulary (a lazy scheme cannot be exact under
 AdaGrad, whose step size depends on the whole gradient history).
 
 Parallelism and determinism: a minibatch is cut into a fixed number of chunks
 (``grad_chunks``, a setting stored with the run, not the machine's core count).
 Each chunk runs the serial kernels into buffers of its own; chunk gradients are
 then summed in chunk order. The result is therefore bitwise the same whatever the
-number of threads that run the chunks.
+number of threads that run the chunks. A chunk's own buffers hold only the small
+dense gradients (W, b, WM, Ws, bs, the tensor's layout); the word rows (dL, dLM) are
+scattered from each chunk's node errors straight into the minibatch gradient, in
+chunk order, so no chunk ever holds a vocabulary-sized copy.
+
+Models: "rnn" and "rntn" run kernels/tree_compose.py, "mvrnn" runs
+kernels/compose_matrix_vector.py; the classifier (kernels/node_classifier.py) and
+everything else here is shared.
 """
 
 from __future__ import annotations
@@ -29,6 +38,7 @@ import scipy.linalg.cython_blas  # noqa: F401  the BLAS numba's np.dot calls: lo
 from threadpoolctl import threadpool_limits
 
 from rntn_engine.data.batches import EncodedTreebank, FlatBatch, make_batch
+from rntn_engine.kernels.compose_matrix_vector import backward_compose_mv, forward_compose_mv
 from rntn_engine.kernels.node_classifier import backward_classify, forward_classify
 from rntn_engine.kernels.tree_compose import (
     add_symmetric_layout_gradient,
@@ -48,9 +58,15 @@ class L2Strengths:
     compose: float = 1e-3  # composition matrix W
     tensor: float = 1e-3  # composition tensor V
     classifier: float = 1e-4  # classifier weights Ws
+    word_matrices: float = 1e-4  # word matrices LM (MV-RNN; its WM is in the compose group)
 
     def of(self, group: str | None) -> float:
         return 0.0 if group is None else float(getattr(self, group))
+
+
+L2_BLOCK = 1 << 22  # elements per pass of the L2 term: its float64 copies stay at 32 MiB, whatever |V| d^2
+# arrays with their own path to the minibatch gradient: word rows scattered from node errors, V from its layout
+_NOT_PER_CHUNK = ("L", "LM", "V")
 
 
 def split_into_chunks(bank: EncodedTreebank, tree_ids: np.ndarray, chunks: int) -> list[FlatBatch]:
@@ -81,16 +97,19 @@ class _Workspace:
 
 
 class TreeModelObjective:
-    """Loss, gradient and class probabilities of the RNN / RNTN over flattened batches."""
+    """Loss, gradient and class probabilities of the RNN / RNTN / MV-RNN over flattened batches."""
 
     def __init__(self, params: Parameters, l2: L2Strengths | None = None, threads: int = 1) -> None:
         self.shape = params.shape
         self.use_tensor = self.shape.model == "rntn"
+        self.use_matrices = self.shape.model == "mvrnn"
         self.l2 = l2 or L2Strengths()
         self.threads = max(1, int(threads))
         self._dtype = params.flat.dtype
         self._workspaces: list[_Workspace] = []
-        self._chunk_grads: list[Parameters] = []
+        # per chunk: name -> its own gradient sum of each small dense array (see module docstring)
+        self._chunk_names = [name for name in params.names() if name not in _NOT_PER_CHUNK]
+        self._chunk_grads: list[dict[str, np.ndarray]] = []
         self._pool = ThreadPoolExecutor(self.threads) if self.threads > 1 else None
         # Parallelism comes from chunks on our own threads; BLAS inside them runs single-threaded
         # (nested BLAS threads on top of ours ran many times slower when measured).
@@ -115,31 +134,50 @@ class TreeModelObjective:
         return self._workspaces[k]
 
     def _forward_chunk(self, params: Parameters, batch: FlatBatch, ws: _Workspace, scale: float):
+        """(loss, P, Y) of one chunk; the backward pass finds the rest in ``ws`` under the same names."""
         d, C = self.shape.dim, self.shape.num_classes
         N, M, D = batch.n_nodes, batch.n_internal, 2 * d
         P = ws.get("P", N, d)  # (N, d) node vectors
-        X = ws.get("X", M, D)  # (M, D) children of each internal node
+        X = ws.get("X", M, D)  # (M, D) children of each internal node ([B a ; A b] for the MV-RNN)
         Z = ws.get("Z", M, d)  # (M, d) pre-activations
-        Q = ws.get("Q", M if self.use_tensor else 0, d * D if self.use_tensor else 0)  # (M, d*D)
+        if self.use_matrices:
+            PM = ws.get("PM", N, d * d).reshape(N, d, d)  # (N, d, d) node matrices
+            ABt = ws.get("ABt", M * d, D)  # (M*d, D) children's matrices, stacked transposed
+            PMt = ws.get("PMt", M * d, d)  # (M*d, d) a level's P^T
+            forward_compose_mv(P, PM, X, Z, ABt, PMt, params.L, params.LM, params.W, params.b, params.WM,
+                               batch.word, batch.left, batch.right, batch.order, batch.level_start)
+        else:
+            Q = ws.get("Q", M if self.use_tensor else 0, d * D if self.use_tensor else 0)  # (M, d*D)
+            forward_compose(P, X, Z, Q, params.L, params.W, params.b, self._Vsym,
+                            batch.word, batch.left, batch.right, batch.order, batch.level_start, self.use_tensor)
         Y = ws.get("Y", N, C)  # (N, C) class probabilities
         S = ws.get("S", N, C)  # (N, C) class scores
-        forward_compose(P, X, Z, Q, params.L, params.W, params.b, self._Vsym,
-                        batch.word, batch.left, batch.right, batch.order, batch.level_start, self.use_tensor)
         loss = forward_classify(Y, S, P, params.Ws, params.bs, batch.label, scale)
-        return loss, P, X, Q, Y
+        return loss, P, Y
 
-    def _gradient_chunk(self, params: Parameters, grads: Parameters, dVsym: np.ndarray,
+    def _gradient_chunk(self, params: Parameters, grads: dict[str, np.ndarray], dVsym: np.ndarray,
                         batch: FlatBatch, ws: _Workspace, scale: float) -> float:
         d, C = self.shape.dim, self.shape.num_classes
         N, M, D = batch.n_nodes, batch.n_internal, 2 * d
-        loss, P, X, Q, Y = self._forward_chunk(params, batch, ws, scale)
+        loss, P, Y = self._forward_chunk(params, batch, ws, scale)
+        X = ws.get("X", M, D)  # from the forward pass
         E = ws.get("E", N, d)  # (N, d) error reaching each node vector
         dS = ws.get("dS", N, C)  # (N, C) softmax error
         Delta = ws.get("Delta", M, d)  # (M, d) error at pre-activations
-        EX = ws.get("EX", M, D)  # (M, D) error reaching the children
-        backward_classify(grads.Ws, grads.bs, E, dS, Y, P, params.Ws, batch.label, scale)
-        backward_compose(grads.W, grads.b, dVsym, E, Delta, EX, P, X, Q, params.W,
-                         batch.left, batch.right, batch.order, batch.level_start, self.use_tensor)
+        EX = ws.get("EX", M, D)  # (M, D) error reaching x
+        backward_classify(grads["Ws"], grads["bs"], E, dS, Y, P, params.Ws, batch.label, scale)
+        if self.use_matrices:
+            PM = ws.get("PM", N, d * d).reshape(N, d, d)  # from the forward pass
+            ABt = ws.get("ABt", M * d, D)  # from the forward pass
+            EM = ws.get("EM", N, d * d).reshape(N, d, d)  # (N, d, d) error reaching each node matrix
+            EPt = ws.get("EPt", M * d, d)  # (M*d, d) EP^T per internal node
+            EABt = ws.get("EABt", M * d, D)  # (M*d, D) a level's (WM^T EP)^T
+            backward_compose_mv(grads["W"], grads["b"], grads["WM"], E, EM, Delta, EX, EPt, EABt, P, PM, X, ABt,
+                                params.W, params.WM, batch.left, batch.right, batch.order, batch.level_start)
+        else:
+            Q = ws.get("Q", M if self.use_tensor else 0, d * D if self.use_tensor else 0)
+            backward_compose(grads["W"], grads["b"], dVsym, E, Delta, EX, P, X, Q, params.W,
+                             batch.left, batch.right, batch.order, batch.level_start, self.use_tensor)
         return loss
 
     # --- public --------------------------------------------------------------------------------------
@@ -151,14 +189,15 @@ class TreeModelObjective:
         if self.use_tensor:
             symmetric_tensor_layout(self._Vsym, params.V)
         while len(self._chunk_grads) < len(chunks):
-            self._chunk_grads.append(params.zeros_like())
+            self._chunk_grads.append({name: np.zeros_like(params[name]) for name in self._chunk_names})
             self._dVsym.append(np.zeros_like(self._Vsym))
 
         def run(k: int) -> float:
-            g = self._chunk_grads[k]
-            g.zero_()
+            own = self._chunk_grads[k]
+            for g in own.values():  # this chunk's own sums start from zero
+                g[...] = 0
             self._dVsym[k][:] = 0
-            return self._gradient_chunk(params, g, self._dVsym[k], chunks[k], self._slot(k), scale)
+            return self._gradient_chunk(params, own, self._dVsym[k], chunks[k], self._slot(k), scale)
 
         if self._pool is not None and len(chunks) > 1:
             losses = list(self._pool.map(run, range(len(chunks))))
@@ -170,12 +209,15 @@ class TreeModelObjective:
         loss = 0.0
         for k, batch in enumerate(chunks):
             loss += losses[k]
-            g = self._chunk_grads[k]
-            for name in ("W", "b", "Ws", "bs"):
-                grads[name] += g[name]
+            for name, g in self._chunk_grads[k].items():
+                grads[name] += g
             if self.use_tensor:
                 add_symmetric_layout_gradient(grads.V, self._dVsym[k])
-            scatter_word_gradients(grads.L, self._slot(k).buffers["E"], batch.word, batch.leaves)
+            ws = self._slot(k)
+            scatter_word_gradients(grads.L, ws.buffers["E"], batch.word, batch.leaves)
+            if self.use_matrices:  # dLM[w] += EM[leaf], a word matrix as one row of d*d numbers
+                dLM = grads.LM.reshape(grads.LM.shape[0], -1)
+                scatter_word_gradients(dLM, ws.buffers["EM"], batch.word, batch.leaves)
         return loss + self.add_l2(params, grads)
 
     def add_l2(self, params: Parameters, grads: Parameters | None) -> float:
@@ -185,17 +227,20 @@ class TreeModelObjective:
             lam = self.l2.of(L2_GROUP[name])
             if lam == 0.0:
                 continue
-            theta = params[name]
-            penalty += 0.5 * lam * float(np.dot(theta.ravel().astype(np.float64), theta.ravel().astype(np.float64)))
-            if grads is not None:
-                grads[name] += grads.flat.dtype.type(lam) * theta
+            theta = params[name].reshape(-1)
+            for a in range(0, theta.size, L2_BLOCK):  # in blocks: no full-size temporary of a large LM or L
+                part = theta[a : a + L2_BLOCK]
+                part64 = part.astype(np.float64)
+                penalty += 0.5 * lam * float(np.dot(part64, part64))
+                if grads is not None:
+                    grads[name].reshape(-1)[a : a + L2_BLOCK] += grads.flat.dtype.type(lam) * part
         return penalty
 
     def forward(self, params: Parameters, batch: FlatBatch) -> tuple[float, np.ndarray, np.ndarray]:
         """Forward only: (cross-entropy sum over labelled nodes, P (N, d) copy, Y (N, C) copy)."""
         if self.use_tensor:
             symmetric_tensor_layout(self._Vsym, params.V)
-        loss, P, _, _, Y = self._forward_chunk(params, batch, self._slot(0), 1.0)
+        loss, P, Y = self._forward_chunk(params, batch, self._slot(0), 1.0)
         return loss, P.copy(), Y.copy()
 
     def loss(self, params: Parameters, chunks: list[FlatBatch]) -> float:
