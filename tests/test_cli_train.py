@@ -98,3 +98,30 @@ def test_rntn_beats_the_majority_baseline_on_the_demo_treebank(tmp_path, capsys)
     assert code == 0
     history = load_checkpoint(tmp_path / "r" / "model.h5").metrics
     assert history[-1]["dev_fine_root"] > 0.2725 + 0.25  # majority-class root baseline of the demo dev set
+
+
+def test_mvrnn_trains_resumes_and_predicts_through_the_same_commands(small_treebanks, tmp_path, capsys):
+    train, dev = small_treebanks
+    run_dir = tmp_path / "mv"
+    args = ["train", "--train-file", str(train), "--dev-file", str(dev), "--model", "mvrnn", "--dim", "5",
+            "--epochs", "2", "--run-dir", str(run_dir), "--no-progress"]
+    assert main([*args, "--time-limit", "0.001s"]) == 75
+    assert main(["resume", str(run_dir), "--time-limit", "0", "--no-progress"]) == 0
+    straight = tmp_path / "mv-straight"
+    assert main([*args[:-3], "--run-dir", str(straight), "--no-progress"]) == 0
+    a, b = load_checkpoint(run_dir / "model.h5"), load_checkpoint(straight / "model.h5")
+    assert a.params.LM.shape == (len(a.vocabulary), 5, 5)
+    assert np.array_equal(a.params.flat, b.params.flat) and np.array_equal(a.adagrad_sums.flat, b.adagrad_sums.flat)
+    capsys.readouterr()
+    assert main(["evaluate", str(run_dir), "-t", str(dev), "--json", "--no-progress", "-j", "1"]) == 0
+    assert main(["predict", str(run_dir / "model.h5"), str(dev), "-o", str(tmp_path / "p.trees")]) == 0
+
+
+def test_memory_guard_refuses_before_allocating(small_treebanks, tmp_path, capsys):
+    train, _ = small_treebanks
+    code = main(["train", "--train-file", str(train), "--model", "mvrnn", "--dim", "200", "--max-memory-gb", "0.01",
+                 "--run-dir", str(tmp_path / "big"), "--no-progress"])
+    err = capsys.readouterr().err.strip()
+    assert code == 1 and len(err.splitlines()) == 1
+    assert "raise --min-count" in err and "lower --dim" in err and "--max-memory-gb" in err
+    assert not list((tmp_path / "big").glob("checkpoint-*"))

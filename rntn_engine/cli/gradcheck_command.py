@@ -44,7 +44,7 @@ def gradcheck(
     params = init_parameters(shape, rng)
     params.flat *= 2.0  # leave tanh's linear range, so curvature terms are exercised
     params.b[:] = rng.uniform(-0.5, 0.5, dim)
-    objective = TreeModelObjective(params, L2Strengths(1e-3, 1e-3, 1e-3, 1e-3))
+    objective = TreeModelObjective(params, L2Strengths(1e-3, 1e-3, 1e-3, 1e-3, word_matrices=1e-3))
     chunks = split_into_chunks(bank, np.arange(bank.n_trees), 2)
     errors = finite_difference_errors(objective, params, chunks)
     typer.echo(f"gradient check: {model}, d={dim}, {trees} random trees ({bank.n_nodes} nodes), float64, "

@@ -15,7 +15,7 @@ _D = TrainConfig()  # defaults, shown in --help
 def train(
     train_file: Annotated[Optional[Path], typer.Option("--train-file", help="Training treebank: bracketed trees, one per line.")] = None,
     dev_file: Annotated[Optional[Path], typer.Option("--dev-file", help="Treebank scored after every epoch.")] = None,
-    model: Annotated[Optional[str], typer.Option("--model", help=f"Model: rnn (matrix composition) or rntn (tensor + matrix). [default: {_D.model}]")] = None,
+    model: Annotated[Optional[str], typer.Option("--model", help=f"Model: rnn (matrix composition), rntn (tensor + matrix) or mvrnn (a matrix per word and phrase). [default: {_D.model}]")] = None,
     dim: Annotated[Optional[int], typer.Option("--dim", help="Size d of word and phrase vectors. [default: the --vectors file's, else 25]")] = None,
     num_classes: Annotated[Optional[int], typer.Option("--num-classes", help=f"Number of classes C; labels are 0..C-1. [default: {_D.num_classes}]")] = None,
     epochs: Annotated[Optional[int], typer.Option("--epochs", help=f"Passes over the training trees. [default: {_D.epochs}]")] = None,
@@ -25,6 +25,8 @@ def train(
     l2_compose: Annotated[Optional[float], typer.Option("--l2-compose", help=f"L2 strength on the composition matrix W. [default: {_D.l2_compose}]")] = None,
     l2_tensor: Annotated[Optional[float], typer.Option("--l2-tensor", help=f"L2 strength on the composition tensor V. [default: {_D.l2_tensor}]")] = None,
     l2_classifier: Annotated[Optional[float], typer.Option("--l2-classifier", help=f"L2 strength on the classifier weights. [default: {_D.l2_classifier}]")] = None,
+    l2_word_matrices: Annotated[Optional[float], typer.Option("--l2-word-matrices", help=f"L2 strength on the word matrices (mvrnn). [default: {_D.l2_word_matrices}]")] = None,
+    max_memory_gb: Annotated[Optional[float], typer.Option("--max-memory-gb", help=f"Refuse a model whose parameters, gradient and AdaGrad sums need more (0: no limit). [default: {_D.max_memory_gb}]")] = None,
     adagrad_eps: Annotated[Optional[float], typer.Option("--adagrad-eps", help=f"AdaGrad epsilon. [default: {_D.adagrad_eps}]")] = None,
     adagrad_reset_epochs: Annotated[Optional[int], typer.Option("--adagrad-reset-epochs", help="Forget AdaGrad's squared-gradient sums every N epochs (0: never). [default: 0]")] = None,
     min_count: Annotated[Optional[int], typer.Option("--min-count", help=f"Training count a word needs for a vector of its own; rarer words share the unknown-word vector. [default: {_D.min_count}]")] = None,
@@ -50,7 +52,7 @@ def train(
     print_config: Annotated[bool, typer.Option("--print-config", help="Print the resolved configuration as TOML and exit.")] = False,
     progress: Annotated[Optional[bool], typer.Option("--progress/--no-progress", help="Progress bar. [default: only on a terminal]")] = None,
 ) -> None:
-    """Train an RNN or RNTN on a phrase-labelled treebank in a new run directory.
+    """Train an RNN, RNTN or MV-RNN on a phrase-labelled treebank in a new run directory.
 
     Prints per-epoch loss and dev accuracy; checkpoints by time, steps and epoch. SIGTERM,
     SIGINT or --time-limit stop it at the next minibatch with a checkpoint and exit code 75;
@@ -64,7 +66,8 @@ def train(
     flags = {
         "train_file": train_file, "dev_file": dev_file, "model": model, "dim": dim, "num_classes": num_classes,
         "epochs": epochs, "batch_size": batch_size, "lr": lr, "l2_words": l2_words, "l2_compose": l2_compose,
-        "l2_tensor": l2_tensor, "l2_classifier": l2_classifier, "adagrad_eps": adagrad_eps,
+        "l2_tensor": l2_tensor, "l2_classifier": l2_classifier, "l2_word_matrices": l2_word_matrices,
+        "max_memory_gb": max_memory_gb, "adagrad_eps": adagrad_eps,
         "adagrad_reset_epochs": adagrad_reset_epochs, "min_count": min_count, "lowercase": lowercase,
         "binarise": binarise, "seed": seed, "dtype": dtype, "threads": threads, "grad_chunks": grad_chunks,
         "run_dir": run_dir, "checkpoint_every_steps": checkpoint_every_steps,
@@ -76,7 +79,7 @@ def train(
     given = {k: (str(v) if isinstance(v, Path) else v) for k, v in flags.items() if v is not None}
     config = config_from_mapping(given, config)
     if print_config:
-        config.validate()
+        config.validate(require_data=False)
         typer.echo(config.to_toml(), nl=False)
         return
     config.validate()

@@ -62,7 +62,9 @@ def _sha256(data: bytes) -> str:
 
 
 def array_checksum(a: np.ndarray) -> str:
-    return _sha256(np.ascontiguousarray(a).tobytes())
+    """SHA-256 of the array's C-order bytes, hashed in place (no copy of a large array)."""
+    contiguous = np.ascontiguousarray(a)
+    return hashlib.sha256(contiguous.reshape(-1).view(np.uint8)).hexdigest()
 
 
 def words_checksum(words: list[str]) -> str:

@@ -34,6 +34,8 @@ PARAMETER_DESCRIPTIONS = {
     "W": "composition matrix, d x 2d",
     "b": "composition bias, d",
     "V": "composition tensor, d x 2d x 2d (h_k = x^T V[k] x)",
+    "LM": "word matrices, |V| x d x d, row 0: unknown word (MV-RNN)",
+    "WM": "matrix composition, d x 2d: P = WM [P_left ; P_right] (MV-RNN)",
     "Ws": "classifier weights, C x d",
     "bs": "classifier bias, C",
 }

@@ -29,7 +29,7 @@ BEST_METRICS = ("dev_fine_root", "dev_fine_all")
 
 # settings `rntn resume` may change: none of them changes the numbers of the steps already taken
 RESUME_OVERRIDABLE = ("epochs", "time_limit", "threads", "checkpoint_every_steps", "checkpoint_every_minutes",
-                      "keep_checkpoints", "patience")
+                      "keep_checkpoints", "patience", "max_memory_gb")
 
 
 class ConfigError(ValueError):
@@ -42,7 +42,7 @@ class TrainConfig:
 
     train_file: str = ""  # treebank to train on (bracketed trees, one per line)
     dev_file: str = ""  # treebank scored after every epoch ("" = none)
-    model: str = "rntn"  # (shape) "rnn" or "rntn"
+    model: str = "rntn"  # (shape) "rnn", "rntn" or "mvrnn"
     dim: int = 0  # (shape) d, size of word and phrase vectors; 0 = the vector file's, or 25 without one
     num_classes: int = 5  # (shape) C; labels are 0..C-1
     epochs: int = 20  # passes over the training trees
@@ -54,6 +54,8 @@ class TrainConfig:
     l2_compose: float = 1e-3  # (result) L2 strength on composition matrix W
     l2_tensor: float = 1e-3  # (result) L2 strength on composition tensor V
     l2_classifier: float = 1e-4  # (result) L2 strength on classifier weights Ws
+    l2_word_matrices: float = 1e-4  # (result) L2 strength on word matrices LM (mvrnn)
+    max_memory_gb: float = 8.0  # refuse a model whose parameters + gradient + AdaGrad sums exceed this (0 = no limit)
     min_count: int = 2  # (shape) training count a word needs for its own vector; rarer -> unknown
     lowercase: bool = False  # (shape) fold words to lower case
     binarise: str = "right"  # how n-ary input nodes are binarised: right, left or strict (refuse)
@@ -74,12 +76,12 @@ class TrainConfig:
     patience: int = 0  # stop after this many evaluations without a better best_metric (0 = never)
     time_limit: str = ""  # wall-clock budget of one invocation, e.g. 23h or 1h30m ("" = none)
 
-    def validate(self) -> "TrainConfig":
+    def validate(self, require_data: bool = True) -> "TrainConfig":
         def need(ok: bool, message: str) -> None:
             if not ok:
                 raise ConfigError(message)
 
-        need(bool(self.train_file), "a training treebank is required (--train-file)")
+        need(bool(self.train_file) or not require_data, "a training treebank is required (--train-file)")
         need(self.model in MODELS, f"--model must be one of {', '.join(MODELS)}, got {self.model!r}")
         need(self.dim >= 0, f"--dim must be at least 1, got {self.dim}")
         need(self.vectors_format in ("auto", "glove", "word2vec-text", "word2vec-binary"),
@@ -94,7 +96,8 @@ class TrainConfig:
         need(self.lr > 0, f"--lr must be positive, got {self.lr}")
         need(self.adagrad_eps > 0, f"adagrad_eps must be positive, got {self.adagrad_eps}")
         need(self.adagrad_reset_epochs >= 0, "adagrad_reset_epochs must be 0 or more")
-        for name in ("l2_words", "l2_compose", "l2_tensor", "l2_classifier"):
+        need(self.max_memory_gb >= 0, "--max-memory-gb must be 0 or more")
+        for name in ("l2_words", "l2_compose", "l2_tensor", "l2_classifier", "l2_word_matrices"):
             need(getattr(self, name) >= 0, f"{name} must be 0 or more, got {getattr(self, name)}")
         need(self.min_count >= 1, f"--min-count must be at least 1, got {self.min_count}")
         need(self.binarise in ("right", "left", "strict"), f"--binarise must be right, left or strict")

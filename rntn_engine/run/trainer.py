@@ -37,7 +37,7 @@ from rntn_engine.data.treebank_reader import read_trees
 from rntn_engine.data.vocabulary import Vocabulary, build_vocabulary
 from rntn_engine.model.adagrad import AdaGrad
 from rntn_engine.model.objective import L2Strengths, TreeModelObjective, split_into_chunks
-from rntn_engine.model.parameters import ModelShape, Parameters, init_parameters
+from rntn_engine.model.parameters import MemoryLimitError, ModelShape, Parameters, check_memory, init_parameters
 from rntn_engine.run.checkpoints import Checkpoint, load_checkpoint, save_checkpoint
 from rntn_engine.run.evaluation import predict_treebank
 from rntn_engine.run.fault_injection import fault_from_environment
@@ -244,6 +244,10 @@ class Trainer:
         data = load_training_data(config, checkpoint.vocabulary if checkpoint else None)
         bank = data.train
         shape = ModelShape(config.model, len(data.vocabulary), config.dim, config.num_classes, config.dtype)
+        try:
+            check_memory(shape, config.max_memory_gb * 2**30)
+        except MemoryLimitError as exc:
+            raise TrainingError(str(exc)) from None
         frozen = ("L",) if config.freeze_vectors else ()
         if checkpoint is None:
             params = init_parameters(shape, np.random.default_rng(config.seed))
@@ -262,7 +266,8 @@ class Trainer:
         rewrite_metrics_log(self.run_dir, history)
 
         grads = params.zeros_like()
-        l2 = L2Strengths(config.l2_words, config.l2_compose, config.l2_tensor, config.l2_classifier)
+        l2 = L2Strengths(words=config.l2_words, compose=config.l2_compose, tensor=config.l2_tensor,
+                         classifier=config.l2_classifier, word_matrices=config.l2_word_matrices)
         objective = TreeModelObjective(params, l2, threads=config.threads)
         steps_per_epoch = -(-bank.n_trees // config.batch_size)
         stop = StopRequest(parse_duration(config.time_limit) if config.time_limit else 0.0)
