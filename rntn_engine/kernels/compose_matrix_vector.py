@@ -47,7 +47,7 @@ import numpy as np
 from numba import njit
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False)
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
 def forward_compose_mv(P, PM, X, Z, ABt, PMt, L, LM, W, b, WM, word, left, right, order, level_start):
     """Node vectors and node matrices of a whole batch, level by level.
 
@@ -95,7 +95,7 @@ def forward_compose_mv(P, PM, X, Z, ABt, PMt, L, LM, W, b, WM, word, left, right
                     PM[i, r, j] = PMt[m * d + j, r]
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False)
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
 def backward_compose_mv(dW, db, dWM, E, EM, Delta, EX, EPt, EABt, P, PM, X, ABt, W, WM, left, right, order,
                         level_start):
     """Gradients of W, b, WM, and errors down to the leaves' vectors and matrices.

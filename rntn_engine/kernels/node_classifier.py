@@ -25,7 +25,7 @@ import numpy as np
 from numba import njit
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False)
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
 def forward_classify(Y, S, P, Ws, bs, label, scale):
     """Class probabilities of every node and the scaled cross-entropy loss.
 
@@ -55,7 +55,7 @@ def forward_classify(Y, S, P, Ws, bs, label, scale):
     return loss * scale
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False)
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
 def backward_classify(dWs, dbs, E, dS, Y, P, Ws, label, scale):
     """Gradients of the classifier and the error each node vector receives from its own classifier.
 

@@ -27,7 +27,7 @@ classifier plus its parent):
     leaf:   dL[w] += e       (scatter_word_gradients)
 
 dW and dV are accumulated once per batch, as single matrix products over all M
-internal nodes: dW += Delta^T X and dVsym_layout += X^T G with
+internal nodes: dW += Delta^T X and dVsym_layout = X^T G with
 G[m, k*D + j] = Delta[m, k] X[m, j]; the latter is then added to dV with
 dV[k, i, j] += (X^T G)[i, k*D + j].
 
@@ -42,17 +42,17 @@ import numpy as np
 from numba import njit
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False)
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
 def symmetric_tensor_layout(Vsym, V):
     """Vsym (D, d*D) out: Vsym[i, k*D + j] = V[k, i, j] + V[k, j, i].   V (d, D, D)."""
     d, D, _ = V.shape
-    for i in range(D):
-        for k in range(d):
+    for k in range(d):  # V[k] (D x D) stays in cache while its transpose is read
+        for i in range(D):
             for j in range(D):
                 Vsym[i, k * D + j] = V[k, i, j] + V[k, j, i]
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False)
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
 def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_start, use_tensor):
     """Node vectors of a whole batch, level by level.
 
@@ -91,11 +91,12 @@ def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_s
                 P[i, k] = np.tanh(Z[m, k] + b[k])
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False)
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
 def backward_compose(dW, db, dVsym, E, Delta, EX, P, X, Q, W, left, right, order, level_start, use_tensor):
     """Gradients of W, b (and the symmetric-layout tensor gradient), and errors down to the leaves.
 
-    dW (d, D) += ; db (d,) += ; dVsym (D, d*D) += X^T G (RNTN; see module docstring).
+    dW (d, D) += ; db (d,) += ; dVsym (D, d*D) out: X^T G (RNTN; see module docstring) -- a
+    per-chunk workspace, overwritten; the gradient dV receives it with += (add_symmetric_layout_gradient).
     E (N, d) in/out: error reaching each node vector; on entry from the node's own
     classifier, on exit also from its parent (leaves' rows are then final).
     Delta (M, d), EX (M, D) workspaces.  P, X, Q from forward_compose; W (d, D).
@@ -125,6 +126,8 @@ def backward_compose(dW, db, dVsym, E, Delta, EX, P, X, Q, W, left, right, order
                 E[l, k] += EX[m, k]
                 E[r, k] += EX[m, d + k]
     if M == 0:
+        if use_tensor:
+            dVsym[:, :] = 0.0
         return
     dW += np.dot(Delta.T, X)  # sum_m delta_m x_m^T: (d, M) x (M, D)
     for m in range(M):
@@ -137,10 +140,10 @@ def backward_compose(dW, db, dVsym, E, Delta, EX, P, X, Q, W, left, right, order
                 dk = Delta[m, k]
                 for j in range(D):
                     Q[m, k * D + j] = dk * X[m, j]
-        dVsym += np.dot(X.T, Q)  # (D, M) x (M, d*D)
+        np.dot(X.T, Q, dVsym)  # (D, M) x (M, d*D), written straight into the chunk's workspace
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False)
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
 def add_symmetric_layout_gradient(dV, dVsym):
     """dV (d, D, D) += the symmetric-layout gradient: dV[k, i, j] += dVsym[i, k*D + j]."""
     d, D, _ = dV.shape
@@ -150,7 +153,7 @@ def add_symmetric_layout_gradient(dV, dVsym):
                 dV[k, i, j] += dVsym[i, k * D + j]
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False)
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
 def scatter_word_gradients(dL, E, word, leaves):
     """dL (|V|, d) += E[i] at row word[i] for every leaf i, in the order of ``leaves``."""
     d = E.shape[1]

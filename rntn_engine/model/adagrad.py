@@ -13,8 +13,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from rntn_engine.kernels.adagrad_step import adagrad_step
-from rntn_engine.model.parameters import Parameters
+from rntn_engine.kernels.adagrad_step import adagrad_l2_step, adagrad_step
+from rntn_engine.model.objective import L2Strengths
+from rntn_engine.model.parameters import L2_GROUP, Parameters
 
 
 class AdaGrad:
@@ -37,6 +38,23 @@ class AdaGrad:
             if name not in self.frozen:
                 adagrad_step(params[name].reshape(-1), self.sums[name].reshape(-1), grads[name].reshape(-1),
                              self.lr, self.eps)
+
+    def step_with_l2(self, params: Parameters, grads: Parameters, l2: L2Strengths) -> float:
+        """Add the L2 gradient, update, and zero ``grads``, in one pass per parameter group.
+
+        ``grads`` holds the data term's gradient only (``loss_and_gradient(..., include_l2=False)``).
+        The parameters come out bitwise as from ``loss_and_gradient`` with L2 followed by
+        :meth:`step`. Returns the penalty sum_g lambda_g / 2 ||theta_g||^2 at the parameters
+        before the update (the part of J the data term leaves out).
+        """
+        penalty = 0.0
+        for name in params.names():
+            lam = l2.of(L2_GROUP[name])
+            theta = params[name].reshape(-1)
+            squares = adagrad_l2_step(theta, self.sums[name].reshape(-1), grads[name].reshape(-1),
+                                      theta.dtype.type(lam), self.lr, self.eps, name not in self.frozen)
+            penalty += 0.5 * lam * squares
+        return penalty
 
     def reset(self) -> None:
         """Forget the squared-gradient history (the optional periodic reset)."""

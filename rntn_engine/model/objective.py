@@ -182,8 +182,13 @@ class TreeModelObjective:
 
     # --- public --------------------------------------------------------------------------------------
 
-    def loss_and_gradient(self, params: Parameters, grads: Parameters, chunks: list[FlatBatch]) -> float:
-        """J of the minibatch made of ``chunks``; writes dJ/dtheta into ``grads`` (zeroed here first)."""
+    def loss_and_gradient(self, params: Parameters, grads: Parameters, chunks: list[FlatBatch],
+                          include_l2: bool = True) -> float:
+        """J of the minibatch made of ``chunks``; writes dJ/dtheta into ``grads`` (zeroed here first).
+
+        ``include_l2=False`` leaves the L2 term out of both (the training loop adds it inside the
+        optimiser's single pass, AdaGrad.step_with_l2).
+        """
         n_trees = sum(c.n_trees for c in chunks)
         scale = 1.0 / n_trees
         if self.use_tensor:
@@ -194,9 +199,8 @@ class TreeModelObjective:
 
         def run(k: int) -> float:
             own = self._chunk_grads[k]
-            for g in own.values():  # this chunk's own sums start from zero
+            for g in own.values():  # this chunk's own sums start from zero (dVsym is overwritten)
                 g[...] = 0
-            self._dVsym[k][:] = 0
             return self._gradient_chunk(params, own, self._dVsym[k], chunks[k], self._slot(k), scale)
 
         if self._pool is not None and len(chunks) > 1:
@@ -218,7 +222,7 @@ class TreeModelObjective:
             if self.use_matrices:  # dLM[w] += EM[leaf], a word matrix as one row of d*d numbers
                 dLM = grads.LM.reshape(grads.LM.shape[0], -1)
                 scatter_word_gradients(dLM, ws.buffers["EM"], batch.word, batch.leaves)
-        return loss + self.add_l2(params, grads)
+        return loss + self.add_l2(params, grads) if include_l2 else loss
 
     def add_l2(self, params: Parameters, grads: Parameters | None) -> float:
         """Add the L2 term: returns sum_g lambda_g/2 ||theta_g||^2, adds lambda_g theta_g to ``grads``."""

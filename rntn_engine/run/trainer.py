@@ -309,12 +309,12 @@ class Trainer:
                     # --- forward / backward / update -------------------------------------------------------
                     tree_ids = order[state.position : state.position + config.batch_size]
                     chunks = split_into_chunks(bank, tree_ids, config.grad_chunks)
-                    loss = objective.loss_and_gradient(params, grads, chunks)
+                    loss = objective.loss_and_gradient(params, grads, chunks, include_l2=False)
                     if not np.isfinite(loss):
                         raise TrainingError(f"loss became {loss} at epoch {state.epoch + 1}, step {state.step + 1}; "
                                             f"the last good checkpoint is untouched. Lower --lr (now {config.lr}) "
                                             f"or raise the L2 strengths and start a new run")
-                    optimiser.step(params, grads)
+                    loss += optimiser.step_with_l2(params, grads, l2)  # L2 term, update, zeroing: one pass
                     nodes = sum(c.n_nodes for c in chunks)
                     state.step += 1
                     state.position += len(tree_ids)
