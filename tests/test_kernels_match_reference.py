@@ -71,3 +71,17 @@ def test_unknown_words_map_to_row_zero():
     last = slice(int(bank.start[-2]), int(bank.start[-1]))
     leaves = bank.word[last][bank.left[last] < 0]
     assert np.all(leaves == 0) and vocabulary.words[0] == "<unknown>"
+
+
+@pytest.mark.parametrize("rows", [1, 3, 1000])
+def test_forward_only_in_blocks_of_rows_equals_the_reference(monkeypatch, rows):
+    # forward-only passes reuse a block of `rows` rows for the tensor term, level by level
+    import rntn_engine.model.objective as objective_module
+
+    monkeypatch.setattr(objective_module, "FORWARD_Q_ROWS", rows)
+    params, bank, _, full, _ = engine_case("rntn", "float64", dim=4, seed=2, param_scale=2.0)
+    P, Y, loss = reference_forward(params.L, params.W, params.b, params.V, params.Ws, params.bs,
+                                   full.word, full.left, full.right, full.label, 1.0)
+    fast_loss, P_fast, Y_fast = TreeModelObjective(params).forward(params, full)
+    assert relative_error(P_fast, P) < 1e-12 and relative_error(Y_fast, Y) < 1e-12
+    assert fast_loss == pytest.approx(loss, rel=1e-12)

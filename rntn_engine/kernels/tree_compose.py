@@ -57,7 +57,9 @@ def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_s
     """Node vectors of a whole batch, level by level.
 
     P (N, d) out: node vectors.   X (M, D) out: children [p_l ; p_r] per internal node, in `order`.
-    Z (M, d) workspace: pre-activations.   Q (M, d*D) out: X Vsym (used only when use_tensor).
+    Z (M, d) workspace: pre-activations.   Q (M, d*D) out: X Vsym (used only when use_tensor), kept
+    for the backward pass; or (R, d*D) with R < M for a forward-only pass: then each level is done
+    in blocks of R rows reusing Q, so memory no longer grows with the batch.
     L (|V|, d); W (d, D); b (d,); Vsym (D, d*D); word/left/right (N,) int32;
     order (M,) int32; level_start (H+1,) int32; use_tensor: RNTN if True, RNN if False.
     """
@@ -78,13 +80,19 @@ def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_s
                 X[m, d + k] = P[right[i], k]
         np.dot(X[a:z], W.T, Z[a:z])  # W x for the level: (n, D) x (D, d)
         if use_tensor:
-            np.dot(X[a:z], Vsym, Q[a:z])  # q_k = S[k] x for the level: (n, D) x (D, d*D)
-            for m in range(a, z):  # h_k = x . q_k / 2
-                for k in range(d):
-                    h = 0.0
-                    for j in range(D):
-                        h += X[m, j] * Q[m, k * D + j]
-                    Z[m, k] += 0.5 * h
+            keep = Q.shape[0] >= order.shape[0]
+            block = (z - a) if keep else Q.shape[0]
+            for s in range(a, z, max(block, 1)):
+                e = min(z, s + block)
+                q0 = s if keep else 0  # row of Q holding node s
+                np.dot(X[s:e], Vsym, Q[q0 : q0 + e - s])  # q_k = S[k] x: (n, D) x (D, d*D)
+                for m in range(s, e):  # h_k = x . q_k / 2
+                    qm = q0 + m - s
+                    for k in range(d):
+                        h = 0.0
+                        for j in range(D):
+                            h += X[m, j] * Q[qm, k * D + j]
+                        Z[m, k] += 0.5 * h
         for m in range(a, z):  # p = tanh(W x + b + h)
             i = order[m]
             for k in range(d):

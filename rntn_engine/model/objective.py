@@ -64,6 +64,7 @@ class L2Strengths:
         return 0.0 if group is None else float(getattr(self, group))
 
 
+FORWARD_Q_ROWS = 512  # forward-only passes compute the tensor term in blocks of this many nodes
 L2_BLOCK = 1 << 22  # elements per pass of the L2 term: its float64 copies stay at 32 MiB, whatever |V| d^2
 # arrays with their own path to the minibatch gradient: word rows scattered from node errors, V from its layout
 _NOT_PER_CHUNK = ("L", "LM", "V")
@@ -133,7 +134,8 @@ class TreeModelObjective:
             self._workspaces.append(_Workspace(self._dtype))
         return self._workspaces[k]
 
-    def _forward_chunk(self, params: Parameters, batch: FlatBatch, ws: _Workspace, scale: float):
+    def _forward_chunk(self, params: Parameters, batch: FlatBatch, ws: _Workspace, scale: float,
+                       keep_for_backward: bool = True):
         """(loss, P, Y) of one chunk; the backward pass finds the rest in ``ws`` under the same names."""
         d, C = self.shape.dim, self.shape.num_classes
         N, M, D = batch.n_nodes, batch.n_internal, 2 * d
@@ -147,7 +149,9 @@ class TreeModelObjective:
             forward_compose_mv(P, PM, X, Z, ABt, PMt, params.L, params.LM, params.W, params.b, params.WM,
                                batch.word, batch.left, batch.right, batch.order, batch.level_start)
         else:
-            Q = ws.get("Q", M if self.use_tensor else 0, d * D if self.use_tensor else 0)  # (M, d*D)
+            # (M, d*D) kept for the backward pass; forward only: a block of rows reused level by level
+            rows = M if keep_for_backward else min(M, FORWARD_Q_ROWS)
+            Q = ws.get("Q", rows if self.use_tensor else 0, d * D if self.use_tensor else 0)
             forward_compose(P, X, Z, Q, params.L, params.W, params.b, self._Vsym,
                             batch.word, batch.left, batch.right, batch.order, batch.level_start, self.use_tensor)
         Y = ws.get("Y", N, C)  # (N, C) class probabilities
@@ -240,12 +244,15 @@ class TreeModelObjective:
                     grads[name].reshape(-1)[a : a + L2_BLOCK] += grads.flat.dtype.type(lam) * part
         return penalty
 
-    def forward(self, params: Parameters, batch: FlatBatch) -> tuple[float, np.ndarray, np.ndarray]:
-        """Forward only: (cross-entropy sum over labelled nodes, P (N, d) copy, Y (N, C) copy)."""
+    def forward(self, params: Parameters, batch: FlatBatch, copy: bool = True) -> tuple[float, np.ndarray, np.ndarray]:
+        """Forward only: (cross-entropy sum over labelled nodes, P (N, d), Y (N, C)).
+
+        With ``copy=False`` P and Y are views of workspaces, valid until the next call.
+        """
         if self.use_tensor:
             symmetric_tensor_layout(self._Vsym, params.V)
-        loss, P, Y = self._forward_chunk(params, batch, self._slot(0), 1.0)
-        return loss, P.copy(), Y.copy()
+        loss, P, Y = self._forward_chunk(params, batch, self._slot(0), 1.0, keep_for_backward=False)
+        return (loss, P.copy(), Y.copy()) if copy else (loss, P, Y)
 
     def loss(self, params: Parameters, chunks: list[FlatBatch]) -> float:
         """J of the minibatch without the gradient (the forward-only twin of loss_and_gradient)."""

@@ -96,7 +96,8 @@ def _predict_block(objective: TreeModelObjective, checkpoint: Checkpoint, block,
     trees = [t for t, _, _ in block]
     bank = encode_treebank(trees, checkpoint.vocabulary)
     batch = make_batch(bank, np.arange(len(trees)))
-    _, _, Y = objective.forward(checkpoint.params, batch)
+    _, _, Y = objective.forward(checkpoint.params, batch, copy=False)
+    Y = Y.copy()  # the rows are handed out with each tree
     labels = np.argmax(Y, axis=1).astype(np.int32)
     for k, (tree, line_no, fallback) in enumerate(block):
         a, z = int(bank.start[k]), int(bank.start[k + 1])
