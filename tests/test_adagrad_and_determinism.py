@@ -61,3 +61,33 @@ def test_repeated_evaluation_is_bitwise_identical():
     a = objective.loss_and_gradient(params, first, chunks)
     b = objective.loss_and_gradient(params, second, chunks)
     assert a == b and np.array_equal(first.flat, second.flat)
+
+
+@pytest.mark.parametrize("dtype", ["float32", "float64"])
+def test_fused_l2_step_equals_gradient_with_l2_then_step(dtype):
+    from rntn_engine.model.objective import L2Strengths
+
+    l2 = L2Strengths(1e-3, 2e-3, 3e-3, 4e-3)
+    params, _, chunks, _, _ = engine_case("rntn", dtype, dim=4)
+    twin = params.copy()
+    a, b = AdaGrad(params, 0.05), AdaGrad(twin, 0.05)
+    grads, grads_twin = params.zeros_like(), twin.zeros_like()
+    for _ in range(3):
+        full = TreeModelObjective(params, l2).loss_and_gradient(params, grads, chunks)
+        a.step(params, grads)
+        data = TreeModelObjective(twin, l2).loss_and_gradient(twin, grads_twin, chunks, include_l2=False)
+        penalty = b.step_with_l2(twin, grads_twin, l2)
+        assert np.array_equal(params.flat, twin.flat) and np.array_equal(a.sums.flat, b.sums.flat)
+        assert data + penalty == pytest.approx(full, rel=1e-12)
+        assert not grads_twin.flat.any()  # the fused pass leaves the gradient zeroed
+
+
+def test_fused_step_flushes_subnormal_parameters_to_zero():
+    from rntn_engine.model.objective import L2Strengths
+
+    shape = ModelShape("rnn", 2, 2, 2, "float32")
+    params = Parameters(shape, np.full(shape.count(), 1e-39, dtype=np.float32))  # subnormal in float32
+    params.W[0, 0] = 0.5
+    opt = AdaGrad(params, lr=1e-45)  # a step far too small to move anything
+    opt.step_with_l2(params, params.zeros_like(), L2Strengths(0, 0, 0, 0))
+    assert params.W[0, 0] == np.float32(0.5) and np.count_nonzero(params.flat) == 1

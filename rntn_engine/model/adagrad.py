@@ -44,7 +44,8 @@ class AdaGrad:
 
         ``grads`` holds the data term's gradient only (``loss_and_gradient(..., include_l2=False)``).
         The parameters come out bitwise as from ``loss_and_gradient`` with L2 followed by
-        :meth:`step`. Returns the penalty sum_g lambda_g / 2 ||theta_g||^2 at the parameters
+        :meth:`step`, except that subnormal results are flushed to zero (they would slow every
+        later step; see kernels/adagrad_step.py). Returns the penalty sum_g lambda_g / 2 ||theta_g||^2 at the parameters
         before the update (the part of J the data term leaves out).
         """
         penalty = 0.0
@@ -52,7 +53,8 @@ class AdaGrad:
             lam = l2.of(L2_GROUP[name])
             theta = params[name].reshape(-1)
             squares = adagrad_l2_step(theta, self.sums[name].reshape(-1), grads[name].reshape(-1),
-                                      theta.dtype.type(lam), self.lr, self.eps, name not in self.frozen)
+                                      theta.dtype.type(lam), self.lr, self.eps, name not in self.frozen,
+                                      float(np.finfo(theta.dtype).tiny))
             penalty += 0.5 * lam * squares
         return penalty
 
