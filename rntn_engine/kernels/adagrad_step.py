@@ -47,14 +47,15 @@ def sum_of_squares(x):
 
 
 @njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
-def adagrad_l2_step(theta, G, g, lam, lr, eps, update, smallest_normal):
+def adagrad_l2_step(theta, G, g, lam, lr, eps, update, flush_below):
     """The L2 term, the AdaGrad update and the zeroing of the gradient, over one parameter group.
 
         gi     = g[i] + lam * theta[i]          (lam has theta's dtype: the same rounding as
                                                  adding lam * theta to the gradient first)
         G     += gi * gi
         theta -= lr * gi / (sqrt(G) + eps)      (skipped when update is False: a frozen group)
-        theta  = 0 where |theta| < smallest_normal  (subnormal numbers are flushed to zero)
+        theta  = 0 where |theta| < flush_below  (the caller passes sqrt(smallest normal number),
+                                                 so no product of two parameters is subnormal)
         g[i]   = 0                              (the gradient buffer is ready for the next step)
 
     theta (n,), G (n,), g (n,) in place. Returns sum_i theta_i^2 before the update, in float64,
@@ -66,9 +67,9 @@ def adagrad_l2_step(theta, G, g, lam, lr, eps, update, smallest_normal):
             gi = g[i] + lam * theta[i]
             G[i] += gi * gi
             t = theta[i] - lr * gi / (np.sqrt(G[i]) + eps)
-            # flush subnormal numbers to zero: L2 walks unused rows towards 0, and subnormal
+            # flush near-subnormal numbers to zero: L2 walks unused rows towards 0, and subnormal
             # operands make every later multiply in the kernels many times slower (measured)
-            theta[i] = t if abs(t) >= smallest_normal else 0.0
+            theta[i] = t if abs(t) >= flush_below else 0.0
             g[i] = 0
     else:
         for i in range(theta.shape[0]):

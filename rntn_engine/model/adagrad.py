@@ -44,8 +44,9 @@ class AdaGrad:
 
         ``grads`` holds the data term's gradient only (``loss_and_gradient(..., include_l2=False)``).
         The parameters come out bitwise as from ``loss_and_gradient`` with L2 followed by
-        :meth:`step`, except that subnormal results are flushed to zero (they would slow every
-        later step; see kernels/adagrad_step.py). Returns the penalty sum_g lambda_g / 2 ||theta_g||^2 at the parameters
+        :meth:`step`, except that magnitudes below sqrt(smallest normal number) -- about 1e-19 in
+        float32, 1e-154 in float64 -- are flushed to zero, so no product of two parameters is
+        subnormal (subnormal operands slow every later step; see kernels/adagrad_step.py). Returns the penalty sum_g lambda_g / 2 ||theta_g||^2 at the parameters
         before the update (the part of J the data term leaves out).
         """
         penalty = 0.0
@@ -54,7 +55,7 @@ class AdaGrad:
             theta = params[name].reshape(-1)
             squares = adagrad_l2_step(theta, self.sums[name].reshape(-1), grads[name].reshape(-1),
                                       theta.dtype.type(lam), self.lr, self.eps, name not in self.frozen,
-                                      float(np.finfo(theta.dtype).tiny))
+                                      float(np.sqrt(np.finfo(theta.dtype).tiny)))
             penalty += 0.5 * lam * squares
         return penalty
 

@@ -254,6 +254,23 @@ class TreeModelObjective:
         loss, P, Y = self._forward_chunk(params, batch, self._slot(0), 1.0, keep_for_backward=False)
         return (loss, P.copy(), Y.copy()) if copy else (loss, P, Y)
 
+    def forward_chunks(self, params: Parameters, chunks: list[FlatBatch]) -> list[tuple[float, np.ndarray]]:
+        """Forward only over several chunks, on the worker threads when there are any.
+
+        Returns (cross-entropy sum, Y view) per chunk; the views stay valid until the next call.
+        The chunks, not the threads, decide the arithmetic, so results do not depend on ``threads``.
+        """
+        if self.use_tensor:
+            symmetric_tensor_layout(self._Vsym, params.V)
+
+        def run(k: int):
+            loss, _, Y = self._forward_chunk(params, chunks[k], self._slot(k), 1.0, keep_for_backward=False)
+            return loss, Y
+
+        if self._pool is not None and len(chunks) > 1:
+            return list(self._pool.map(run, range(len(chunks))))
+        return [run(k) for k in range(len(chunks))]
+
     def loss(self, params: Parameters, chunks: list[FlatBatch]) -> float:
         """J of the minibatch without the gradient (the forward-only twin of loss_and_gradient)."""
         n_trees = sum(c.n_trees for c in chunks)

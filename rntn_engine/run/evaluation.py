@@ -9,11 +9,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from rntn_engine.data.batches import EncodedTreebank, make_batch
-from rntn_engine.model.objective import TreeModelObjective
+from rntn_engine.data.batches import EncodedTreebank
+from rntn_engine.model.objective import TreeModelObjective, split_into_chunks
 from rntn_engine.model.parameters import Parameters
 from rntn_engine.run.scores import accuracy
 
+PREDICT_CHUNKS = 2  # pieces of each block, run on the objective's worker threads when it has them
 PREDICT_BATCH_TREES = 1024  # trees per forward call when predicting: wider levels, better matrix products
 
 
@@ -51,13 +52,16 @@ def predict_treebank(objective: TreeModelObjective, params: Parameters, bank: En
     loss_sum = 0.0
     for a in range(0, bank.n_trees, batch_trees):
         z = min(a + batch_trees, bank.n_trees)
-        batch = make_batch(bank, np.arange(a, z))
-        loss, _, Y = objective.forward(params, batch, copy=False)
-        lo, hi = int(bank.start[a]), int(bank.start[z])
-        predicted[lo:hi] = np.argmax(Y, axis=1)
-        if probabilities is not None:
-            probabilities[lo:hi] = Y
-        loss_sum += loss
+        # a fixed split (not the thread count) decides the arithmetic: the same labels on any machine
+        chunks = split_into_chunks(bank, np.arange(a, z), PREDICT_CHUNKS)
+        lo = int(bank.start[a])
+        for chunk, (loss, Y) in zip(chunks, objective.forward_chunks(params, chunks)):
+            hi = lo + chunk.n_nodes
+            predicted[lo:hi] = np.argmax(Y, axis=1)
+            if probabilities is not None:
+                probabilities[lo:hi] = Y
+            loss_sum += loss
+            lo = hi
     is_root = np.zeros(n, dtype=bool)
     is_root[bank.start[1:] - 1] = True
     return TreebankPredictions(bank.label.copy(), predicted, is_root, loss_sum, probabilities)
