@@ -110,10 +110,10 @@ def bench_setting(bank, vocab_size: int, dim: int, dtype: str, threads: int, arg
     internal = sum(int(np.sum(c.left >= 0)) for b in batches for c in b)
     trees = sum(c.n_trees for b in batches for c in b)
 
-    def train_pass():
+    def train_pass():  # the training loop's own path: data term, then L2 + AdaGrad + zeroing in one pass
         for chunks in batches:
-            objective.loss_and_gradient(params, grads, chunks)
-            optimiser.step(params, grads)
+            objective.loss_and_gradient(params, grads, chunks, include_l2=False)
+            optimiser.step_with_l2(params, grads, objective.l2)
 
     train_pass()  # warm up: compile or load kernels, grow workspaces
     train_s, train_cpu = timed(train_pass, args.repeats)
@@ -159,12 +159,15 @@ AdaGrad(params, 0.01).step(params, grads)
 print(time.perf_counter() - t0)
 """
 
+# Peak resident memory from /proc/self/status VmHWM: unlike getrusage's ru_maxrss, which a child
+# inherits from its parent across fork and exec, VmHWM belongs to this process image alone.
 MEMORY_PROBE = """
-import resource, sys
+import sys
 from rntn_engine.run.run_config import TrainConfig
 from rntn_engine.run.trainer import load_training_data
 data = load_training_data(TrainConfig(train_file=sys.argv[1], min_count=1, dim=25))
-print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024, data.train.n_nodes)
+hwm = [line for line in open("/proc/self/status") if line.startswith("VmHWM:")][0].split()
+print(int(hwm[1]) * 1024, data.train.n_nodes)
 """
 
 
