@@ -3,26 +3,22 @@ mid-run checkpoint, resume, and the finished run must differ from the unperturbe
 (training_seconds is the one field that only feeds wall-time reporting.)"""
 
 import shutil
-from pathlib import Path
 
-import numpy as np
 import pytest
 
+from demo_slices import write_demo_slices
 from rntn_engine.cli.app import main
 from rntn_engine.data.vocabulary import Vocabulary
 from rntn_engine.run.checkpoints import load_checkpoint, save_checkpoint
 from rntn_engine.run.run_directory import list_checkpoints
 
-DEMO = Path(__file__).resolve().parents[1] / "data_demo"
 TIMING = ("wall_seconds", "nodes_per_second")
 
 
 @pytest.fixture(scope="module")
 def finished_run(tmp_path_factory):
     root = tmp_path_factory.mktemp("fields")
-    lines = (DEMO / "garden_train.trees").read_text(encoding="utf-8").splitlines()
-    (root / "train.trees").write_text("\n".join(lines[:60]) + "\n", encoding="utf-8")
-    (root / "dev.trees").write_text("\n".join(lines[60:80]) + "\n", encoding="utf-8")
+    write_demo_slices(root, 60, 20)
     run_dir = root / "run"
     assert main(["train", "--train-file", str(root / "train.trees"), "--dev-file", str(root / "dev.trees"),
                  "--dim", "4", "--epochs", "3", "--batch-size", "10", "--checkpoint-every-steps", "4",

@@ -10,21 +10,18 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from demo_slices import write_demo_slices
 from rntn_engine.cli.app import main
 from rntn_engine.data.treebank_reader import read_trees
 from rntn_engine.run.checkpoints import load_checkpoint
 from rntn_engine.run.run_directory import list_checkpoints
 
-DEMO = Path(__file__).resolve().parents[1] / "data_demo"
 
 
 @pytest.fixture(scope="module")
 def demo_run(tmp_path_factory):
     root = tmp_path_factory.mktemp("eval")
-    lines = (DEMO / "garden_train.trees").read_text(encoding="utf-8").splitlines()
-    (root / "train.trees").write_text("\n".join(lines[:300]) + "\n", encoding="utf-8")
-    dev_lines = (DEMO / "garden_dev.trees").read_text(encoding="utf-8").splitlines()[:80]
-    (root / "dev.trees").write_text("\n".join(dev_lines) + "\n", encoding="utf-8")
+    write_demo_slices(root, 300, 80, dev_split="dev")
     run_dir = root / "run"
     assert main(["train", "--train-file", str(root / "train.trees"), "--dev-file", str(root / "dev.trees"),
                  "--dim", "8", "--epochs", "4", "--lr", "0.05", "--keep-checkpoints", "100",

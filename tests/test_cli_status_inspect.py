@@ -4,18 +4,15 @@ import json
 import subprocess
 import sys
 import time
-from pathlib import Path
 
+from demo_slices import write_demo_slices
 from rntn_engine.cli.app import main
 from rntn_engine.run.run_directory import list_checkpoints
 
-DEMO = Path(__file__).resolve().parents[1] / "data_demo"
 
 
 def make_treebanks(tmp_path):
-    lines = (DEMO / "garden_train.trees").read_text(encoding="utf-8").splitlines()
-    (tmp_path / "train.trees").write_text("\n".join(lines[:60]) + "\n", encoding="utf-8")
-    (tmp_path / "dev.trees").write_text("\n".join(lines[60:80]) + "\n", encoding="utf-8")
+    write_demo_slices(tmp_path, 60, 20)
 
 
 def args(tmp_path, run_dir, epochs):

@@ -5,6 +5,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from demo_slices import write_demo_slices
 from rntn_engine.cli.app import main
 from rntn_engine.run.checkpoints import load_checkpoint
 
@@ -13,12 +14,7 @@ DEMO = Path(__file__).resolve().parents[1] / "data_demo"
 
 @pytest.fixture
 def small_treebanks(tmp_path):
-    lines = (DEMO / "garden_train.trees").read_text(encoding="utf-8").splitlines()
-    train = tmp_path / "train.trees"
-    dev = tmp_path / "dev.trees"
-    train.write_text("\n".join(lines[:150]) + "\n", encoding="utf-8")
-    dev.write_text("\n".join(lines[150:200]) + "\n", encoding="utf-8")
-    return train, dev
+    return write_demo_slices(tmp_path, 150, 50)
 
 
 def test_train_writes_model_config_and_metrics(small_treebanks, tmp_path, capsys):

@@ -6,6 +6,7 @@ import numpy as np
 import pytest
 from gensim.models import KeyedVectors
 
+from demo_slices import write_demo_slices
 from rntn_engine.cli.app import main
 from rntn_engine.data.word_vectors import load_vectors_for
 from rntn_engine.run.checkpoints import load_checkpoint
@@ -16,8 +17,7 @@ VECTORS = DEMO / "garden_vectors_25d.glove.txt"
 
 @pytest.fixture
 def small(tmp_path):
-    lines = (DEMO / "garden_train.trees").read_text(encoding="utf-8").splitlines()
-    (tmp_path / "train.trees").write_text("\n".join(lines[:100]) + "\n", encoding="utf-8")
+    write_demo_slices(tmp_path, 100)
     return tmp_path
 
 

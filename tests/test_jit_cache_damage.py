@@ -4,7 +4,6 @@ cache directory still runs (RELIABILITY.md, point 8)."""
 import os
 import subprocess
 import sys
-from pathlib import Path
 
 PROBE = """
 import numpy as np

@@ -8,7 +8,6 @@ from rntn_engine.model.parameters import (
     MemoryLimitError,
     ModelShape,
     check_memory,
-    format_bytes,
     init_parameters,
     parameter_shapes,
 )

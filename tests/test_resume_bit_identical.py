@@ -16,21 +16,19 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from demo_slices import write_demo_slices
 from rntn_engine.cli.app import main
 from rntn_engine.data.checkpoint_file import is_our_temp_file, read_checkpoint
 from rntn_engine.run.checkpoints import load_checkpoint
 from rntn_engine.run.run_directory import list_checkpoints
 
-DEMO = Path(__file__).resolve().parents[1] / "data_demo"
 EXIT_STOPPED = 75
 
 
 @pytest.fixture(scope="module")
 def treebanks(tmp_path_factory):
     root = tmp_path_factory.mktemp("resume-data")
-    lines = (DEMO / "garden_train.trees").read_text(encoding="utf-8").splitlines()
-    (root / "train.trees").write_text("\n".join(lines[:120]) + "\n", encoding="utf-8")
-    (root / "dev.trees").write_text("\n".join(lines[120:150]) + "\n", encoding="utf-8")
+    write_demo_slices(root, 120, 30)
     return root
 
 

@@ -2,28 +2,23 @@
 a full disk, an edited configuration, a finished run, early stopping and the time limit."""
 
 import json
-import os
-import signal
 import subprocess
 import sys
 import time
-from pathlib import Path
 
 import numpy as np
 import pytest
 
+from demo_slices import write_demo_slices
 from rntn_engine.cli.app import main
 from rntn_engine.run.checkpoints import load_checkpoint
 from rntn_engine.run.run_directory import list_checkpoints, lock_is_held
 
-DEMO = Path(__file__).resolve().parents[1] / "data_demo"
 
 
 @pytest.fixture
 def treebanks(tmp_path):
-    lines = (DEMO / "garden_train.trees").read_text(encoding="utf-8").splitlines()
-    (tmp_path / "train.trees").write_text("\n".join(lines[:80]) + "\n", encoding="utf-8")
-    (tmp_path / "dev.trees").write_text("\n".join(lines[80:100]) + "\n", encoding="utf-8")
+    write_demo_slices(tmp_path, 80, 20)
     return tmp_path
 
 

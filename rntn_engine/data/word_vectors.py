@@ -32,7 +32,6 @@ from typing import Iterable
 import numpy as np
 
 from rntn_engine.data import word_vector_files as files
-from rntn_engine.data.errors import VectorFileError
 from rntn_engine.data.vocabulary import Vocabulary
 from rntn_engine.data.word_vector_files import RowKeeper, open_vector_stream, read_file_start
 from rntn_engine.data.word_vectors_binary import BinaryRowReader

@@ -100,7 +100,7 @@ class TrainConfig:
         for name in ("l2_words", "l2_compose", "l2_tensor", "l2_classifier", "l2_word_matrices"):
             need(getattr(self, name) >= 0, f"{name} must be 0 or more, got {getattr(self, name)}")
         need(self.min_count >= 1, f"--min-count must be at least 1, got {self.min_count}")
-        need(self.binarise in ("right", "left", "strict"), f"--binarise must be right, left or strict")
+        need(self.binarise in ("right", "left", "strict"), "--binarise must be right, left or strict")
         need(self.dtype in DTYPES, f"--dtype must be one of {', '.join(DTYPES)}, got {self.dtype!r}")
         need(self.grad_chunks >= 1, f"grad_chunks must be at least 1, got {self.grad_chunks}")
         need(self.threads >= 1, f"--threads must be at least 1, got {self.threads}")

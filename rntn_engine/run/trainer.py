@@ -50,7 +50,6 @@ from rntn_engine.run.run_config import (
 )
 from rntn_engine.run.run_directory import (
     CONFIG_FILE,
-    METRICS_FILE,
     MODEL_FILE,
     PROGRESS_FILE,
     RunLock,
