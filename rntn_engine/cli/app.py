@@ -28,7 +28,7 @@ from rntn_engine.run.run_errors import RunDirectoryError, TrainingError
 
 app = typer.Typer(
     name="rntn",
-    help="Train and apply recursive tree models (RNN, RNTN) over phrase-labelled treebanks, on CPUs.",
+    help="Train and apply recursive tree models (RNN, MV-RNN, RNTN) over phrase-labelled treebanks, on CPUs.",
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
@@ -49,7 +49,7 @@ def _root(
         typer.Option("--version", callback=_version_callback, is_eager=True, help="Print the version and exit."),
     ] = None,
 ) -> None:
-    """Train and apply recursive tree models over phrase-labelled treebanks, on CPUs."""
+    """Train and apply recursive tree models (RNN, MV-RNN, RNTN) over phrase-labelled treebanks, on CPUs."""
 
 
 def _register_commands() -> None:
