@@ -155,7 +155,7 @@ def test_nan_inf_and_overflow_in_text(tmp_path, value, message):
 
 def test_undecodable_bytes_in_a_word(tmp_path):
     path = write(tmp_path / "v.txt", b"a 1 2 3\nb\xff 1 2 3\n")
-    expect(path, r"bytes that are not UTF-8 \('\\\\xff'\); pass encoding_errors='replace'", line=2, column=2)
+    expect(path, r"bytes that are not UTF-8 \('\\\\xff'\); choose the 'replace' encoding-error mode", line=2, column=2)
     assert load_vectors_for(path, None, encoding_errors="replace").words == ("a", "b\ufffd")
 
 

@@ -292,7 +292,7 @@ def decode_word(raw: bytes, errors: str, path: str, *, line: int | None = None, 
     except UnicodeDecodeError as exc:
         message = (
             f"bytes that are not UTF-8 ({quote(raw[exc.start : exc.end])}) in the word; "
-            "pass encoding_errors='replace' to substitute U+FFFD"
+            "choose the 'replace' encoding-error mode (rntn train --vectors-encoding-errors replace) to substitute U+FFFD"
         )
         if line is not None:
             raise VectorFileError(path, message, line=line, column=column_of(raw, exc.start)) from None

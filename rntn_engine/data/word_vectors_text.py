@@ -147,7 +147,7 @@ class TextRowReader:
                     raise VectorFileError(
                         self.path,
                         f"bytes that are not UTF-8 ({quote(block[exc.start : exc.end])}); "
-                        "pass encoding_errors='replace' to substitute U+FFFD",
+                        "choose the 'replace' encoding-error mode (rntn train --vectors-encoding-errors replace) to substitute U+FFFD",
                         line=self.line_no,
                         column=column_of(block[: line_end if line_end >= 0 else len(block)], exc.start),
                     ) from None
