@@ -10,9 +10,11 @@ with groups words (L), compose (W, and WM of the MV-RNN), tensor (V), word_matri
 of *every* minibatch objective and is applied densely: every row of L receives
 lambda_words * L[w] each step (every LM[w] lambda_word_matrices * LM[w]), whether or
 not the minibatch contains word w. This is the exact gradient of J, so AdaGrad sees
-it too; it costs one pass over L (and LM) per step, in blocks of L2_BLOCK numbers so
-that no temporary grows with the vocabulary (a lazy scheme cannot be exact under
-AdaGrad, whose step size depends on the whole gradient history).
+it too (a lazy scheme cannot be exact under AdaGrad, whose step size depends on the
+whole gradient history). Here (``add_l2``) it costs one pass over L (and LM) per step,
+in blocks of L2_BLOCK numbers so that no temporary grows with the vocabulary; the
+training loop instead asks for the data term only (``include_l2=False``) and lets
+AdaGrad.step_with_l2 add the same term inside its single update pass, with the same bits.
 
 Parallelism and determinism: a minibatch is cut into a fixed number of chunks
 (``grad_chunks``, a setting stored with the run, not the machine's core count).
