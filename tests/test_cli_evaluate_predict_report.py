@@ -100,6 +100,10 @@ def test_predict_trees_round_trip_through_the_reader(demo_run, tmp_path, capsys)
     root, run_dir = demo_run
     out = tmp_path / "pred.trees"
     assert main(["predict", str(run_dir / "model.h5"), str(root / "dev.trees"), "-o", str(out)]) == 0
+    out2 = tmp_path / "pred2.trees"
+    assert main(["predict", str(run_dir / "model.h5"), str(root / "dev.trees"), "-o", str(out2),
+                 "--threads", "2"]) == 0
+    assert out.read_bytes() == out2.read_bytes()  # the thread count never changes a label
     predicted = read_trees(out, num_classes=5)
     source = read_trees(root / "dev.trees")
     assert len(predicted) == len(source)

@@ -16,6 +16,7 @@ def predict(
     output_format: Annotated[str, typer.Option("--format", help="trees: bracketed trees with predicted labels; jsonl: per sentence, every node's span text, label and class probabilities.")] = "trees",
     input_format: Annotated[str, typer.Option("--input-format", help="auto (a line starting with '(' is a tree, any other a sentence), trees, or sentences.")] = "auto",
     output: Annotated[str, typer.Option("--output", "-o", help="Write here instead of standard output.")] = "-",
+    threads: Annotated[int, typer.Option("--threads", min=1, help="Worker threads (the labels do not depend on it).")] = 1,
 ) -> None:
     """Predict a label for every node of every input tree or sentence, streaming any size of input.
 
@@ -41,7 +42,7 @@ def predict(
     sink = sys.stdout if output == "-" else open(output, "w", encoding="utf-8")
     summary = PredictionSummary()
     try:
-        for predicted in predict_lines(model, _lines(stream, source), source, input_format, summary):
+        for predicted in predict_lines(model, _lines(stream, source), source, input_format, summary, threads):
             if output_format == "trees":
                 sink.write(format_tree(predicted.tree, predicted.labels) + "\n")
             else:

@@ -20,12 +20,13 @@ from typing import Iterable, Iterator
 
 import numpy as np
 
-from rntn_engine.data.batches import encode_treebank, make_batch
+from rntn_engine.data.batches import encode_treebank
 from rntn_engine.data.bracket_tokens import SEPARATORS, unescape_token
 from rntn_engine.data.tree import UNLABELLED, Tree, tree_from_arrays
 from rntn_engine.data.treebank_reader import parse_tree
-from rntn_engine.model.objective import TreeModelObjective
+from rntn_engine.model.objective import TreeModelObjective, split_into_chunks
 from rntn_engine.run.checkpoints import Checkpoint
+from rntn_engine.run.evaluation import PREDICT_CHUNKS
 
 BLOCK_LINES = 256  # lines predicted together (one forward call)
 
@@ -73,10 +74,13 @@ def parse_input_line(text: str, source: str, line: int, input_format: str, binar
 
 
 def predict_lines(checkpoint: Checkpoint, lines: Iterable[str], source: str, input_format: str = "auto",
-                  summary: PredictionSummary | None = None) -> Iterator[PredictedTree]:
-    """Predict every node of every input line, in input order, ``BLOCK_LINES`` lines per forward pass."""
+                  summary: PredictionSummary | None = None, threads: int = 1) -> Iterator[PredictedTree]:
+    """Predict every node of every input line, in input order, ``BLOCK_LINES`` lines per forward pass.
+
+    ``threads`` worker threads share each block (the labels do not depend on it).
+    """
     summary = summary if summary is not None else PredictionSummary()
-    objective = TreeModelObjective(checkpoint.params)
+    objective = TreeModelObjective(checkpoint.params, threads=threads)
     block: list[tuple[Tree, int, bool]] = []
     try:
         for line_no, text in enumerate(lines, start=1):
@@ -95,9 +99,9 @@ def predict_lines(checkpoint: Checkpoint, lines: Iterable[str], source: str, inp
 def _predict_block(objective: TreeModelObjective, checkpoint: Checkpoint, block, summary: PredictionSummary):
     trees = [t for t, _, _ in block]
     bank = encode_treebank(trees, checkpoint.vocabulary)
-    batch = make_batch(bank, np.arange(len(trees)))
-    _, _, Y = objective.forward(checkpoint.params, batch, copy=False)
-    Y = Y.copy()  # the rows are handed out with each tree
+    # the same fixed split as scoring (run/evaluation.py), so both give the same labels
+    chunks = split_into_chunks(bank, np.arange(len(trees)), PREDICT_CHUNKS)
+    Y = np.concatenate([y for _, y in objective.forward_chunks(checkpoint.params, chunks)])  # a copy
     labels = np.argmax(Y, axis=1).astype(np.int32)
     for k, (tree, line_no, fallback) in enumerate(block):
         a, z = int(bank.start[k]), int(bank.start[k + 1])
