@@ -20,15 +20,21 @@ def report(
     best checkpoint (all nodes) as PNG files. Needs matplotlib: pip install 'rntn_engine[plot]'."""
     from rntn_engine.data.treebank_reader import read_trees
     from rntn_engine.run.checkpoint_evaluation import detail_report
-    from rntn_engine.run.checkpoints import load_checkpoint
+    from rntn_engine.run.checkpoints import load_checkpoint, newest_valid_checkpoint
     from rntn_engine.run.report_figures import MissingPlotLibrary, plot_confusion, plot_learning_curves, require_matplotlib
+    from rntn_engine.run.trainer import stored_config
 
     try:
         require_matplotlib()
     except MissingPlotLibrary as exc:
         typer.echo(f"rntn: {exc}", err=True)
         raise typer.Exit(EXIT_BAD_INPUT)
-    newest = load_latest_valid_checkpoint_readonly(run_dir)
+    stored_config(run_dir)  # a clear error if this is not a run directory
+    newest, damaged = newest_valid_checkpoint(run_dir)
+    for _, exc in damaged:
+        typer.echo(f"warning: {exc}; using the previous checkpoint", err=True)
+    if newest is None:
+        raise typer.BadParameter(f"{run_dir}: no valid checkpoint to report on", param_hint="RUN_DIR")
     out_dir = out_dir or run_dir / "report"
     out_dir.mkdir(parents=True, exist_ok=True)
     config = newest.config
@@ -48,19 +54,3 @@ def report(
                                       f"fine-grained accuracy {detail['scores']['fine_all']:.3f}"))
     for path in written:
         typer.echo(f"wrote {path}")
-
-
-def load_latest_valid_checkpoint_readonly(run_dir: Path):
-    """The newest checkpoint that verifies (reading only: nothing is renamed or written)."""
-    from rntn_engine.data.checkpoint_file import CheckpointError
-    from rntn_engine.run.checkpoints import load_checkpoint
-    from rntn_engine.run.run_directory import list_checkpoints
-    from rntn_engine.run.trainer import stored_config
-
-    stored_config(run_dir)  # a clear error if this is not a run directory
-    for candidate in reversed(list_checkpoints(run_dir)):
-        try:
-            return load_checkpoint(candidate.path)
-        except CheckpointError as exc:
-            typer.echo(f"warning: {exc}; using the previous checkpoint", err=True)
-    raise typer.BadParameter(f"{run_dir}: no valid checkpoint to report on", param_hint="RUN_DIR")

@@ -28,6 +28,7 @@ from rntn_engine.data.checkpoint_file import CheckpointContent, CheckpointError,
 from rntn_engine.data.vocabulary import Vocabulary
 from rntn_engine.model.parameters import ModelShape, Parameters
 from rntn_engine.run.run_config import ConfigError, TrainConfig, config_from_mapping
+from rntn_engine.run.run_directory import list_checkpoints
 
 PARAMETER_DESCRIPTIONS = {
     "L": "word vectors, one row per vocabulary id (row 0: unknown word)",
@@ -119,3 +120,17 @@ def load_checkpoint(path: Path | str) -> Checkpoint:
     return Checkpoint(params, vocabulary, config, sums, content.records.get("state", {}),
                       content.records.get("metrics", []), content.records.get("data_hashes", {}),
                       content.records.get("versions", {}), str(path))
+
+
+def newest_valid_checkpoint(run_dir: Path) -> tuple[Checkpoint | None, list[tuple[Path, CheckpointError]]]:
+    """The newest checkpoint of a run (by step) that verifies, and the newer ones that did not.
+
+    Reads only: callers decide what to do with the damaged files (report them, rename them aside).
+    """
+    damaged: list[tuple[Path, CheckpointError]] = []
+    for candidate in reversed(list_checkpoints(run_dir)):
+        try:
+            return load_checkpoint(candidate.path), damaged
+        except CheckpointError as exc:
+            damaged.append((candidate.path, exc))
+    return None, damaged

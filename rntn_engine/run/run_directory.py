@@ -25,7 +25,7 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
-from rntn_engine.data.checkpoint_file import CheckpointError, fsync_directory, is_our_temp_file
+from rntn_engine.data.checkpoint_file import fsync_directory, is_our_temp_file
 from rntn_engine.run.run_errors import RunDirectoryError
 
 CONFIG_FILE = "config.toml"
@@ -180,6 +180,3 @@ def append_metrics(run_dir: Path, record: dict) -> None:
     with open(run_dir / METRICS_FILE, "a", encoding="utf-8") as fh:
         fh.write(json.dumps(record) + "\n")
 
-
-def checkpoint_error_line(exc: CheckpointError) -> str:
-    return str(exc)

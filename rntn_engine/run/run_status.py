@@ -10,8 +10,7 @@ import json
 import time
 from pathlib import Path
 
-from rntn_engine.data.checkpoint_file import CheckpointError, read_checkpoint
-from rntn_engine.run.run_config import config_from_mapping
+from rntn_engine.run.checkpoints import newest_valid_checkpoint
 from rntn_engine.run.run_directory import METRICS_FILE, PROGRESS_FILE, list_checkpoints, lock_is_held
 from rntn_engine.run.trainer import stored_config
 
@@ -37,16 +36,11 @@ def run_status(run_dir: Path) -> dict:
             progress = json.loads((run_dir / PROGRESS_FILE).read_text(encoding="utf-8"))
         except ValueError:
             progress = {}
-    checkpoint_state, checkpoint_name, damaged = None, None, []
-    for candidate in reversed(list_checkpoints(run_dir)):
-        try:
-            content = read_checkpoint(candidate.path)
-        except CheckpointError as exc:
-            damaged.append(str(exc))
-            continue
-        checkpoint_state, checkpoint_name = content.records.get("state", {}), candidate.path.name
-        config = config_from_mapping(content.records["config"])
-        break
+    newest, damaged_files = newest_valid_checkpoint(run_dir)
+    damaged = [str(exc) for _, exc in damaged_files]
+    checkpoint_state, checkpoint_name = None, None
+    if newest is not None:
+        checkpoint_state, checkpoint_name, config = newest.state, Path(newest.path).name, newest.config
     metrics = _read_json_lines(run_dir / METRICS_FILE)
     state = progress if holder is not None and progress else (checkpoint_state or {})
     finished = bool(checkpoint_state and checkpoint_state.get("finished"))

@@ -32,13 +32,12 @@ import numpy as np
 from tqdm import tqdm
 
 from rntn_engine.data.batches import EncodedTreebank, encode_treebank
-from rntn_engine.data.checkpoint_file import CheckpointError
 from rntn_engine.data.treebank_reader import read_trees
 from rntn_engine.data.vocabulary import Vocabulary, build_vocabulary
 from rntn_engine.model.adagrad import AdaGrad
 from rntn_engine.model.objective import L2Strengths, TreeModelObjective, split_into_chunks
 from rntn_engine.model.parameters import MemoryLimitError, ModelShape, Parameters, check_memory, init_parameters
-from rntn_engine.run.checkpoints import Checkpoint, load_checkpoint, save_checkpoint
+from rntn_engine.run.checkpoints import Checkpoint, newest_valid_checkpoint, save_checkpoint
 from rntn_engine.run.evaluation import predict_treebank
 from rntn_engine.run.fault_injection import fault_from_environment
 from rntn_engine.run.run_config import (
@@ -161,20 +160,12 @@ def prepare_new_run_directory(config: TrainConfig) -> Path:
 
 def load_latest_valid_checkpoint(run_dir: Path, echo: Callable[[str], None]) -> Checkpoint | None:
     """The newest checkpoint (by step) that verifies; damaged newer ones are renamed aside with a warning."""
-    damaged = []
-    for candidate in reversed(list_checkpoints(run_dir)):
-        try:
-            checkpoint = load_checkpoint(candidate.path)
-        except CheckpointError as exc:
-            echo(f"warning: {exc}; falling back to the previous checkpoint")
-            damaged.append(candidate.path)
-            continue
-        for path in damaged:  # keep the evidence, out of the way of new checkpoints of the same step
-            os.replace(path, path.with_name(path.name + ".damaged"))
-        return checkpoint
-    for path in damaged:
+    checkpoint, damaged = newest_valid_checkpoint(run_dir)
+    for path, exc in damaged:
+        echo(f"warning: {exc}; falling back to the previous checkpoint")
+        # keep the evidence, out of the way of new checkpoints of the same step
         os.replace(path, path.with_name(path.name + ".damaged"))
-    return None
+    return checkpoint
 
 
 def stored_config(run_dir: Path) -> TrainConfig:
