@@ -48,7 +48,7 @@ from rntn_engine.data.treebank_writer import write_trees
 from rntn_engine.data.vocabulary import build_vocabulary
 from rntn_engine.model.adagrad import AdaGrad
 from rntn_engine.model.objective import TreeModelObjective, split_into_chunks
-from rntn_engine.model.parameters import ModelShape, init_parameters
+from rntn_engine.model.parameters import Gradient, ModelShape, init_parameters
 from rntn_engine.run.checkpoints import load_checkpoint, save_checkpoint
 from rntn_engine.run.evaluation import predict_treebank
 from rntn_engine.run.run_config import TrainConfig
@@ -100,7 +100,7 @@ def timed(fn, repeats: int) -> tuple[float, float]:
 def bench_setting(bank, vocab_size: int, dim: int, dtype: str, threads: int, args) -> dict:
     shape = ModelShape("rntn", vocab_size, dim, 5, dtype)
     params = init_parameters(shape, np.random.default_rng(0))
-    grads = params.zeros_like()
+    grads = Gradient(params.shape)
     objective = TreeModelObjective(params, threads=threads)
     optimiser = AdaGrad(params, 0.01)
     order = np.random.default_rng(1).permutation(bank.n_trees)
@@ -145,14 +145,14 @@ import numpy as np
 from rntn_engine.data.treebank_reader import read_trees
 from rntn_engine.data.vocabulary import build_vocabulary
 from rntn_engine.data.batches import encode_treebank
-from rntn_engine.model.parameters import ModelShape, init_parameters
+from rntn_engine.model.parameters import Gradient, ModelShape, init_parameters
 from rntn_engine.model.objective import TreeModelObjective, split_into_chunks
 from rntn_engine.model.adagrad import AdaGrad
 trees = read_trees(sys.argv[1])[:200]
 vocab = build_vocabulary(trees, min_count=1)
 bank = encode_treebank(trees, vocab)
 params = init_parameters(ModelShape("rntn", len(vocab), int(sys.argv[2]), 5, sys.argv[3]), np.random.default_rng(0))
-grads = params.zeros_like()
+grads = Gradient(params.shape)
 objective = TreeModelObjective(params)
 objective.loss_and_gradient(params, grads, split_into_chunks(bank, np.arange(27), 2))
 AdaGrad(params, 0.01).step(params, grads)

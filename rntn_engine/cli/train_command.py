@@ -22,6 +22,7 @@ def train(
     batch_size: Annotated[Optional[int], typer.Option("--batch-size", help=f"Trees per minibatch. [default: {_D.batch_size}]")] = None,
     lr: Annotated[Optional[float], typer.Option("--lr", help=f"AdaGrad learning rate. [default: {_D.lr}]")] = None,
     l2_words: Annotated[Optional[float], typer.Option("--l2-words", help=f"L2 strength on word vectors. [default: {_D.l2_words}]")] = None,
+    l2_words_toward: Annotated[Optional[str], typer.Option("--l2-words-toward", help="What L2 on word vectors pulls toward: zero, or start (each vector's starting value, e.g. its pretrained one). Either way only words of the minibatch are pulled. [default: zero]")] = None,
     l2_compose: Annotated[Optional[float], typer.Option("--l2-compose", help=f"L2 strength on the composition matrix W. [default: {_D.l2_compose}]")] = None,
     l2_tensor: Annotated[Optional[float], typer.Option("--l2-tensor", help=f"L2 strength on the composition tensor V. [default: {_D.l2_tensor}]")] = None,
     l2_classifier: Annotated[Optional[float], typer.Option("--l2-classifier", help=f"L2 strength on the classifier weights. [default: {_D.l2_classifier}]")] = None,
@@ -65,7 +66,7 @@ def train(
         config = config_from_mapping(load_config_file(config_file), config, source=str(config_file))
     flags = {
         "train_file": train_file, "dev_file": dev_file, "model": model, "dim": dim, "num_classes": num_classes,
-        "epochs": epochs, "batch_size": batch_size, "lr": lr, "l2_words": l2_words, "l2_compose": l2_compose,
+        "epochs": epochs, "batch_size": batch_size, "lr": lr, "l2_words": l2_words, "l2_words_toward": l2_words_toward, "l2_compose": l2_compose,
         "l2_tensor": l2_tensor, "l2_classifier": l2_classifier, "l2_word_matrices": l2_word_matrices,
         "max_memory_gb": max_memory_gb, "adagrad_eps": adagrad_eps,
         "adagrad_reset_epochs": adagrad_reset_epochs, "min_count": min_count, "lowercase": lowercase,

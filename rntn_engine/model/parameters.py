@@ -16,8 +16,10 @@ Models: "rnn" (L, W, b, Ws, bs), "rntn" (+ V; Socher et al. 2013), "mvrnn" (+ LM
 Socher, Huval, Manning & Ng 2012).
 
 Because every array is a view of one contiguous buffer, the optimiser and the
-checkpoint writer treat all of them as one vector; a gradient is the same
-structure filled with zeros (:meth:`Parameters.zeros_like`).
+checkpoint writer treat all of them as one vector. A gradient (:class:`Gradient`) keeps
+the same layout for the dense arrays (W, b, V, WM, Ws, bs) in one flat buffer, but holds
+the word arrays (L, LM: one row per vocabulary word) as the rows a minibatch touched
+only, so a training step costs what its trees touch, whatever the vocabulary size.
 
 Initialisation (seeded, documented in README):
     L  ~ U(-0.1, 0.1)
@@ -51,6 +53,9 @@ DTYPES = {"float32": np.float32, "float64": np.float64}
 # which L2 group regularises each parameter (None: not regularised)
 L2_GROUP = {"L": "words", "W": "compose", "b": None, "V": "tensor", "LM": "word_matrices", "WM": "compose",
             "Ws": "classifier", "bs": None}
+
+# arrays with one row per vocabulary word: a minibatch's gradient reaches only the rows of its words
+WORD_ROW_NAMES = ("L", "LM")
 
 WORD_MATRIX_NOISE = 0.01  # LM[w] = I + U(-WORD_MATRIX_NOISE, WORD_MATRIX_NOISE) at initialisation
 
@@ -88,9 +93,16 @@ class ModelShape:
         """Number of scalar parameters."""
         return int(sum(np.prod(s) for s in self.shapes().values()))
 
-    def training_bytes(self) -> int:
-        """Parameters + gradient + AdaGrad sums, in bytes (workspaces excluded)."""
-        return 3 * self.count() * np.dtype(DTYPES[self.dtype]).itemsize
+    def dense_count(self) -> int:
+        """Number of scalars outside the word arrays (the size of a gradient's dense buffer)."""
+        return int(sum(np.prod(s) for name, s in self.shapes().items() if name not in WORD_ROW_NAMES))
+
+    def training_bytes(self, anchored_words: bool = False) -> int:
+        """Parameters + AdaGrad sums + the gradient's dense buffer, in bytes (workspaces and the
+        minibatch's word rows excluded); plus a copy of L when L2 pulls word vectors toward their
+        starting values (``anchored_words``)."""
+        anchor = int(np.prod(self.shapes()["L"])) if anchored_words else 0
+        return (2 * self.count() + self.dense_count() + anchor) * np.dtype(DTYPES[self.dtype]).itemsize
 
 
 class Parameters:
@@ -141,6 +153,92 @@ class Parameters:
         self.flat[:] = 0
 
 
+class WordRows:
+    """The gradient of one word array (L or LM) at the rows a minibatch touched.
+
+    ``rows`` (n,) int64: distinct word ids, ascending (a fixed order, so results never depend
+    on how the minibatch was split or threaded); ``values`` (n, width): the gradient of those
+    rows, width = d for L and d*d for LM. Storage grows once to the largest n seen.
+    """
+
+    def __init__(self, width: int, dtype: np.dtype) -> None:
+        self.width = width
+        self._buffer = np.zeros((16, width), dtype=dtype)
+        self.rows = np.zeros(0, dtype=np.int64)
+        self.values = self._buffer[:0]
+
+    def reset(self, rows: np.ndarray) -> None:
+        """Hold the rows ``rows`` (sorted, distinct), with zero gradient."""
+        n = rows.shape[0]
+        if n > self._buffer.shape[0]:
+            self._buffer = np.zeros((max(n, 2 * self._buffer.shape[0]), self.width), dtype=self._buffer.dtype)
+        self.rows = rows.astype(np.int64, copy=False)
+        self.values = self._buffer[:n]
+        self.values[...] = 0
+
+    def clear(self) -> None:
+        self.reset(np.zeros(0, dtype=np.int64))
+
+
+class Gradient:
+    """dJ/dtheta for a minibatch: dense arrays in one flat buffer with named views, word arrays as rows.
+
+    ``grads.W`` / ``grads["W"]`` are views of the dense buffer ``grads.flat``; ``grads.rows["L"]``
+    (and ``["LM"]`` for the MV-RNN) is a :class:`WordRows`. :meth:`dense` builds the full-size
+    array of any name, for checks and tests (it allocates |V| rows: never on the training path).
+    """
+
+    def __init__(self, shape: ModelShape) -> None:
+        self.shape = shape
+        dtype = DTYPES[shape.dtype]
+        shapes = shape.shapes()
+        self.flat = np.zeros(shape.dense_count(), dtype=dtype)
+        self.views: dict[str, np.ndarray] = {}
+        self.rows: dict[str, WordRows] = {}
+        offset = 0
+        for name, s in shapes.items():
+            if name in WORD_ROW_NAMES:
+                self.rows[name] = WordRows(int(np.prod(s[1:])), dtype)
+                continue
+            n = int(np.prod(s))
+            self.views[name] = self.flat[offset : offset + n].reshape(s)
+            offset += n
+
+    def names(self) -> list[str]:
+        return list(self.shape.shapes())
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        if name in self.rows:
+            raise KeyError(f"{name} is held as touched rows: use .rows[{name!r}] or .dense({name!r})")
+        return self.views[name]
+
+    def __setitem__(self, name: str, value: np.ndarray) -> None:
+        # `grads[name] += g` adds in place into the view, then assigns it back: nothing to copy
+        if value is not self[name]:
+            raise ValueError(f"assign gradients in place (grads[{name!r}] += ...), not by replacing the view")
+
+    def __getattr__(self, name: str) -> np.ndarray:
+        views = self.__dict__.get("views")
+        if views is not None and name in views:
+            return views[name]
+        raise AttributeError(name)
+
+    def dense(self, name: str) -> np.ndarray:
+        """A full-size copy of the gradient of ``name`` (zero in the rows the minibatch did not touch)."""
+        if name not in self.rows:
+            return self.views[name].copy()
+        shape = self.shape.shapes()[name]
+        out = np.zeros((shape[0], self.rows[name].width), dtype=self.flat.dtype)
+        out[self.rows[name].rows] = self.rows[name].values
+        return out.reshape(shape)
+
+    def zero_(self) -> None:
+        """The one explicit zeroing step: dense buffer to zero, no word rows."""
+        self.flat[:] = 0
+        for rows in self.rows.values():
+            rows.clear()
+
+
 def init_parameters(shape: ModelShape, rng: np.random.Generator) -> Parameters:
     """Random initial parameters, drawn in a fixed order from ``rng`` (see module docstring)."""
     params = Parameters(shape)
@@ -172,14 +270,15 @@ def format_bytes(n: float) -> str:
     return f"{n / 2**30:.2f} GiB" if n >= 2**30 else f"{n / 2**20:.1f} MiB"
 
 
-def check_memory(shape: ModelShape, limit_bytes: float) -> int:
+def check_memory(shape: ModelShape, limit_bytes: float, anchored_words: bool = False) -> int:
     """The estimated training memory of ``shape`` in bytes; MemoryLimitError if above ``limit_bytes``.
 
-    The estimate is :meth:`ModelShape.training_bytes`: parameters + gradient + AdaGrad sums
-    (the objective's per-chunk workspaces, a few MiB for usual batches, are not counted).
+    The estimate is :meth:`ModelShape.training_bytes`: parameters + AdaGrad sums + the gradient's
+    dense part (+ the starting word vectors when ``anchored_words``); the objective's per-chunk
+    workspaces and the minibatch's word rows, a few MiB for usual batches, are not counted.
     ``limit_bytes <= 0`` means no limit.
     """
-    need = shape.training_bytes()
+    need = shape.training_bytes(anchored_words)
     if limit_bytes <= 0 or need <= limit_bytes:
         return need
     shapes = shape.shapes()
@@ -187,7 +286,7 @@ def check_memory(shape: ModelShape, limit_bytes: float) -> int:
     share = int(np.prod(shapes[largest])) / shape.count()
     raise MemoryLimitError(
         f"{shape.model} with d={shape.dim} and a vocabulary of {shape.vocab_size:,} words needs about "
-        f"{format_bytes(need)} for parameters, gradient and AdaGrad sums ({shape.count():,} {shape.dtype} "
+        f"{format_bytes(need)} for parameters, AdaGrad sums and gradient ({shape.count():,} {shape.dtype} "
         f"parameters, {share:.0%} of them in {largest} {shapes[largest]}), above the limit of "
         f"{format_bytes(limit_bytes)}: raise --min-count for a smaller vocabulary, lower --dim, "
         f"or raise the limit with --max-memory-gb")

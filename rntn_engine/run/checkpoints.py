@@ -4,6 +4,7 @@ A checkpoint (data/checkpoint_file.py gives the HDF5 layout) holds:
 
     arrays/parameters/<name>     L, W, b, V, Ws, bs (model/parameters.py)
     arrays/adagrad_sums/<name>   AdaGrad's G for each parameter (absent in an exported model)
+    arrays/l2_anchors/L          starting word vectors, when L2 pulls word vectors toward them
     words/vocabulary             id -> word, row i of L is words[i]
     records/config               the resolved TrainConfig
     records/vocabulary_options   {"lowercase": ..., "min_count": ...}
@@ -60,11 +61,12 @@ class Checkpoint:
     data_hashes: dict = field(default_factory=dict)
     versions: dict = field(default_factory=dict)
     path: str = ""
+    anchors: dict = field(default_factory=dict)  # word array name -> what its L2 term pulls toward
 
 
 def save_checkpoint(path: Path | str, params: Parameters, vocabulary: Vocabulary, config: TrainConfig,
                     adagrad_sums: Parameters | None = None, state: dict | None = None, metrics: list | None = None,
-                    data_hashes: dict | None = None, fault=None) -> None:
+                    data_hashes: dict | None = None, fault=None, anchors: dict | None = None) -> None:
     content = CheckpointContent()
     for name in params.names():
         content.arrays[f"parameters/{name}"] = params[name]
@@ -72,6 +74,9 @@ def save_checkpoint(path: Path | str, params: Parameters, vocabulary: Vocabulary
         if adagrad_sums is not None:
             content.arrays[f"adagrad_sums/{name}"] = adagrad_sums[name]
             content.descriptions[f"arrays/adagrad_sums/{name}"] = f"AdaGrad sum of squared gradients of {name}"
+    for name, anchor in (anchors or {}).items():
+        content.arrays[f"l2_anchors/{name}"] = anchor
+        content.descriptions[f"arrays/l2_anchors/{name}"] = f"starting values of {name}, which its L2 term pulls toward"
     content.words["vocabulary"] = list(vocabulary.words)
     content.descriptions["words/vocabulary"] = "vocabulary: word of each row of L"
     content.records["config"] = config.to_dict()
@@ -117,9 +122,18 @@ def load_checkpoint(path: Path | str) -> Checkpoint:
                 raise bad(f"dataset /arrays/{key} is {value.shape} {value.dtype}, expected "
                           f"{target[name].shape} {target[name].dtype}")
             target[name] = value
+    anchors = {}
+    if config.l2_words_toward == "start":
+        key = "l2_anchors/L"
+        if key not in content.arrays:
+            raise bad(f"dataset /arrays/{key} is missing (the run pulls word vectors toward their starting values)")
+        if content.arrays[key].shape != params.L.shape or content.arrays[key].dtype != params.L.dtype:
+            raise bad(f"dataset /arrays/{key} is {content.arrays[key].shape} {content.arrays[key].dtype}, expected "
+                      f"{params.L.shape} {params.L.dtype}")
+        anchors["L"] = content.arrays[key]
     return Checkpoint(params, vocabulary, config, sums, content.records.get("state", {}),
                       content.records.get("metrics", []), content.records.get("data_hashes", {}),
-                      content.records.get("versions", {}), str(path))
+                      content.records.get("versions", {}), str(path), anchors)
 
 
 def newest_valid_checkpoint(run_dir: Path) -> tuple[Checkpoint | None, list[tuple[Path, CheckpointError]]]:

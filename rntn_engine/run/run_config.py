@@ -27,6 +27,9 @@ from rntn_engine.run.stop_signals import parse_duration
 # dev scores a run can select its best checkpoint by (all higher-is-better)
 BEST_METRICS = ("dev_fine_root", "dev_fine_all")
 
+# what the L2 term on word vectors pulls toward: zero, or each vector's value at the start of the run
+L2_WORDS_TOWARD = ("zero", "start")
+
 # settings `rntn resume` may change: none of them changes the numbers of the steps already taken
 RESUME_OVERRIDABLE = ("epochs", "time_limit", "threads", "checkpoint_every_steps", "checkpoint_every_minutes",
                       "keep_checkpoints", "patience", "max_memory_gb")
@@ -50,7 +53,8 @@ class TrainConfig:
     lr: float = 0.01  # (result) AdaGrad learning rate
     adagrad_eps: float = 1e-6  # (result) AdaGrad epsilon in lr * g / (sqrt(G) + eps)
     adagrad_reset_epochs: int = 0  # (result) forget AdaGrad sums every this many epochs (0 = never)
-    l2_words: float = 1e-4  # (result) L2 strength on word vectors L
+    l2_words: float = 1e-4  # (result) L2 strength on word vectors L (only rows a minibatch touches)
+    l2_words_toward: str = "zero"  # (result) what L2 pulls word vectors toward: zero, or start (their starting values)
     l2_compose: float = 1e-3  # (result) L2 strength on composition matrix W
     l2_tensor: float = 1e-3  # (result) L2 strength on composition tensor V
     l2_classifier: float = 1e-4  # (result) L2 strength on classifier weights Ws
@@ -97,6 +101,8 @@ class TrainConfig:
         need(self.adagrad_eps > 0, f"adagrad_eps must be positive, got {self.adagrad_eps}")
         need(self.adagrad_reset_epochs >= 0, "adagrad_reset_epochs must be 0 or more")
         need(self.max_memory_gb >= 0, "--max-memory-gb must be 0 or more")
+        need(self.l2_words_toward in L2_WORDS_TOWARD,
+             f"--l2-words-toward must be one of {', '.join(L2_WORDS_TOWARD)}, got {self.l2_words_toward!r}")
         for name in ("l2_words", "l2_compose", "l2_tensor", "l2_classifier", "l2_word_matrices"):
             need(getattr(self, name) >= 0, f"{name} must be 0 or more, got {getattr(self, name)}")
         need(self.min_count >= 1, f"--min-count must be at least 1, got {self.min_count}")

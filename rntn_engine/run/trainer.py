@@ -36,7 +36,14 @@ from rntn_engine.data.treebank_reader import read_trees
 from rntn_engine.data.vocabulary import Vocabulary, build_vocabulary
 from rntn_engine.model.adagrad import AdaGrad
 from rntn_engine.model.objective import L2Strengths, TreeModelObjective, split_into_chunks
-from rntn_engine.model.parameters import MemoryLimitError, ModelShape, Parameters, check_memory, init_parameters
+from rntn_engine.model.parameters import (
+    Gradient,
+    MemoryLimitError,
+    ModelShape,
+    Parameters,
+    check_memory,
+    init_parameters,
+)
 from rntn_engine.run.checkpoints import Checkpoint, newest_valid_checkpoint, save_checkpoint
 from rntn_engine.run.evaluation import predict_treebank
 from rntn_engine.run.fault_injection import fault_from_environment
@@ -190,6 +197,7 @@ class Trainer:
         self.last_saved_step: int | None = None
         self.last_save_time = time.monotonic()
         self.last_heartbeat = 0.0
+        self.anchors: dict[str, np.ndarray] = {}  # what the word arrays' L2 terms pull toward (run state)
 
     # .. checkpoints ...........................................................................................
 
@@ -202,7 +210,7 @@ class Trainer:
         path = self.run_dir / checkpoint_name(state.step)
         try:
             save_checkpoint(path, params, data.vocabulary, self.config, optimiser.sums, state.to_dict(), history,
-                            data.hashes, fault=self.fault)
+                            data.hashes, fault=self.fault, anchors=self.anchors)
         except OSError as exc:
             previous = list_checkpoints(self.run_dir)
             kept = f"the previous checkpoint {previous[-1].path.name} is intact" if previous else "no checkpoint existed yet"
@@ -235,7 +243,7 @@ class Trainer:
         bank = data.train
         shape = ModelShape(config.model, len(data.vocabulary), config.dim, config.num_classes, config.dtype)
         try:
-            check_memory(shape, config.max_memory_gb * 2**30)
+            check_memory(shape, config.max_memory_gb * 2**30, anchored_words=config.l2_words_toward == "start")
         except MemoryLimitError as exc:
             raise TrainingError(str(exc)) from None
         frozen = ("L",) if config.freeze_vectors else ()
@@ -245,20 +253,23 @@ class Trainer:
                 params.L[:] = initial_word_vectors(config, data.vocabulary, bank, params.flat.dtype, self.echo)
             optimiser = AdaGrad(params, config.lr, config.adagrad_eps, frozen)
             state, history = RunState(), []
+            if config.l2_words_toward == "start":
+                self.anchors = {"L": params.L.copy()}
         else:
             params = checkpoint.params
             optimiser = AdaGrad(params, config.lr, config.adagrad_eps, frozen)
             optimiser.sums.flat[:] = checkpoint.adagrad_sums.flat
             state, history = RunState.from_dict(checkpoint.state), list(checkpoint.metrics)
+            self.anchors = dict(checkpoint.anchors)
             self.last_saved_step = state.step
         if state.finished and state.finish_reason == "all epochs done" and state.epoch < config.epochs:
             state.finished, state.finish_reason = False, ""  # more epochs were asked for on resume
         rewrite_metrics_log(self.run_dir, history)
 
-        grads = params.zeros_like()
+        grads = Gradient(shape)
         l2 = L2Strengths(words=config.l2_words, compose=config.l2_compose, tensor=config.l2_tensor,
                          classifier=config.l2_classifier, word_matrices=config.l2_word_matrices)
-        objective = TreeModelObjective(params, l2, threads=config.threads)
+        objective = TreeModelObjective(params, l2, threads=config.threads, anchors=self.anchors)
         steps_per_epoch = -(-bank.n_trees // config.batch_size)
         stop = StopRequest(parse_duration(config.time_limit) if config.time_limit else 0.0)
         where = "from the beginning" if checkpoint is None else f"from step {state.step} (epoch {state.epoch + 1}, " \
@@ -304,7 +315,7 @@ class Trainer:
                         raise TrainingError(f"loss became {loss} at epoch {state.epoch + 1}, step {state.step + 1}; "
                                             f"the last good checkpoint is untouched. Lower --lr (now {config.lr}) "
                                             f"or raise the L2 strengths and start a new run")
-                    loss += optimiser.step_with_l2(params, grads, l2)  # L2 term, update, zeroing: one pass
+                    loss += optimiser.step_with_l2(params, grads, l2, self.anchors)  # L2, update, zeroing: one pass
                     nodes = sum(c.n_nodes for c in chunks)
                     state.step += 1
                     state.position += len(tree_ids)
@@ -374,7 +385,7 @@ class Trainer:
                           data: TrainingData) -> None:
         path = self.run_dir / MODEL_FILE
         save_checkpoint(path, params, data.vocabulary, self.config, optimiser.sums, state.to_dict(), history, data.hashes,
-                        fault=self.fault)
+                        fault=self.fault, anchors=self.anchors)
         best = f"; best {self.config.best_metric} {state.best_value:.4f} in {state.best_checkpoint}" \
             if state.best_value is not None else ""
         self.echo(f"saved {path}{best}")
@@ -423,7 +434,8 @@ def resume_training(run_dir: Path, overrides: dict, echo: Callable[[str], None] 
             state = RunState.from_dict(checkpoint.state)
             if not (run_dir / MODEL_FILE).exists():  # killed between the last checkpoint and the model file
                 save_checkpoint(run_dir / MODEL_FILE, checkpoint.params, checkpoint.vocabulary, checkpoint.config,
-                                checkpoint.adagrad_sums, checkpoint.state, checkpoint.metrics, checkpoint.data_hashes)
+                                checkpoint.adagrad_sums, checkpoint.state, checkpoint.metrics, checkpoint.data_hashes,
+                                anchors=checkpoint.anchors)
                 echo(f"saved {run_dir / MODEL_FILE}")
             echo(f"run already finished at step {state.step} ({state.finish_reason}); nothing to do")
             return EXIT_FINISHED
