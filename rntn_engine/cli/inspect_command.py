@@ -8,13 +8,14 @@ from typing import Annotated
 
 import typer
 
+from rntn_engine.cli.shared_options import JsonOption
 from rntn_engine.cli.app_exit import EXIT_BAD_INPUT
 from rntn_engine.cli.tables import render_pairs, render_table
 
 
 def inspect(
     checkpoint: Annotated[Path, typer.Argument(help="A checkpoint-step*.h5 or model.h5 file.")],
-    as_json: Annotated[bool, typer.Option("--json", help="Print the summary as JSON.")] = False,
+    as_json: JsonOption = False,
 ) -> None:
     """Summarise a checkpoint: format version, model and sizes, position, data hashes, metrics,
     and the result of verifying every dataset's checksum (exit 1 if any fails)."""

@@ -9,6 +9,7 @@ from typing import Annotated
 
 import typer
 
+from rntn_engine.cli.shared_options import ThreadsOption
 
 def predict(
     checkpoint: Annotated[Path, typer.Argument(help="A model.h5 or checkpoint file.")],
@@ -16,7 +17,7 @@ def predict(
     output_format: Annotated[str, typer.Option("--format", help="trees: bracketed trees with predicted labels; jsonl: per sentence, every node's span text, label and class probabilities.")] = "trees",
     input_format: Annotated[str, typer.Option("--input-format", help="auto (a line starting with '(' is a tree, any other a sentence), trees, or sentences.")] = "auto",
     output: Annotated[str, typer.Option("--output", "-o", help="Write here instead of standard output.")] = "-",
-    threads: Annotated[int, typer.Option("--threads", min=1, help="Worker threads (the labels do not depend on it).")] = 1,
+    threads: ThreadsOption = 1,
 ) -> None:
     """Predict a label for every node of every input tree or sentence, streaming any size of input.
 

@@ -11,6 +11,8 @@ from typing import Annotated, Optional
 import typer
 from tqdm import tqdm
 
+from rntn_engine.cli.shared_options import JsonOption
+
 from rntn_engine.cli.tables import format_count, format_number, format_share, render_pairs, render_table
 from rntn_engine.data.treebank_reader import iter_trees
 from rntn_engine.data.treebank_stats import LabelDistribution, StatsAccumulator, TreebankStats
@@ -27,10 +29,7 @@ def stats(
         list[Path],
         typer.Argument(help="Treebank files: one bracketed tree per line.", metavar="TREEBANK", show_default=False),
     ],
-    json_output: Annotated[
-        bool,
-        typer.Option("--json", help="Print one JSON object instead of tables: {'files': [...], 'total': {...}}."),
-    ] = False,
+    json_output: JsonOption = False,
     num_classes: Annotated[
         Optional[int],
         typer.Option(

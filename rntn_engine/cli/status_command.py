@@ -8,6 +8,7 @@ from typing import Annotated
 
 import typer
 
+from rntn_engine.cli.shared_options import JsonOption
 from rntn_engine.cli.tables import render_pairs
 
 
@@ -22,7 +23,7 @@ def format_seconds(seconds: float | None) -> str:
 
 def status(
     run_dir: Annotated[Path, typer.Argument(help="Run directory made by `rntn train`.")],
-    as_json: Annotated[bool, typer.Option("--json", help="Print the summary as JSON.")] = False,
+    as_json: JsonOption = False,
 ) -> None:
     """Tell whether a run is alive, where it is (epoch, step, percentage), its speed, an ETA,
     the latest dev scores and the best checkpoint. Reads only; changes nothing."""

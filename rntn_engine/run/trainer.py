@@ -48,7 +48,7 @@ from rntn_engine.run.checkpoints import Checkpoint, newest_valid_checkpoint, sav
 from rntn_engine.run.evaluation import predict_treebank
 from rntn_engine.run.fault_injection import fault_from_environment
 from rntn_engine.run.run_config import (
-    RESUME_OVERRIDABLE,
+    RESUME_CHANGEABLE,
     TrainConfig,
     config_differences,
     config_from_mapping,
@@ -287,10 +287,7 @@ class Trainer:
         stop.install()
         try:
             while state.epoch < config.epochs:
-                # --- schedule: this epoch's order, optional AdaGrad reset ------------------------------------
-                if (config.adagrad_reset_epochs and state.epoch > 0 and state.position == 0
-                        and state.epoch % config.adagrad_reset_epochs == 0):
-                    optimiser.reset()
+                # --- schedule: this epoch's order ------------------------------------------------------------
                 order = epoch_order(config.seed, state.epoch, bank.n_trees)
                 bar = tqdm(total=bank.n_trees, initial=state.position, unit="tree", leave=False,
                            desc=f"epoch {state.epoch + 1}/{config.epochs}",
@@ -417,7 +414,7 @@ def resume_training(run_dir: Path, overrides: dict, echo: Callable[[str], None] 
             echo(f"removed the leftover of an interrupted write: {leftover.name}")
         checkpoint = load_latest_valid_checkpoint(run_dir, echo)
         if checkpoint is not None:
-            differing = config_differences(checkpoint.config, config, ignore=RESUME_OVERRIDABLE)
+            differing = config_differences(checkpoint.config, config, ignore=RESUME_CHANGEABLE)
             if differing:
                 raise RunDirectoryError(f"{run_dir / CONFIG_FILE}: differs from the checkpoint in "
                                         f"{', '.join(differing)}; restore it or start a new run")
