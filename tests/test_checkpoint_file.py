@@ -7,10 +7,10 @@ import h5py
 import numpy as np
 import pytest
 
+from rntn_engine.data.atomic_files import is_our_temp_file
 from rntn_engine.data.checkpoint_file import (
     CheckpointContent,
     CheckpointError,
-    is_our_temp_file,
     read_checkpoint,
     write_checkpoint,
 )

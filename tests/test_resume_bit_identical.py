@@ -18,7 +18,8 @@ import pytest
 
 from demo_slices import write_demo_slices
 from rntn_engine.cli.app import main
-from rntn_engine.data.checkpoint_file import is_our_temp_file, read_checkpoint
+from rntn_engine.data.atomic_files import is_our_temp_file
+from rntn_engine.data.checkpoint_file import read_checkpoint
 from rntn_engine.run.checkpoints import load_checkpoint
 from rntn_engine.run.run_directory import list_checkpoints
 

@@ -9,11 +9,14 @@ Layout (readable with plain h5py or ``h5dump``)::
     /records/<name>        one UTF-8 JSON text each (config, run state, metrics, data hashes,
                            library versions); attrs: sha256 (of the UTF-8 text), description
 
-Writing (:func:`write_checkpoint`): a fresh file under a temporary name in the
-target directory (``.<final name>.<pid>.tmp``), closed, fsynced, renamed over the
-final name, then the directory fsynced; the rename is the commit point. Any error
-removes the temporary file and leaves what was there before untouched. No file is
-ever updated in place, and nothing is pickled.
+Writing (:func:`write_checkpoint`): the whole HDF5 file is built in memory, then
+written by data/atomic_files.py (a temporary file in the target directory, fsync,
+rename over the final name, fsync of the directory; the rename is the commit point).
+HDF5 itself therefore never touches the disk while writing: a full disk or a file-size
+limit surfaces as one OSError from a plain write or fsync, the temporary file is
+removed, and what was there before stays untouched. The price is one extra copy of the
+checkpoint in memory while it is written. No file is ever updated in place, and
+nothing is pickled.
 
 Reading (:func:`read_checkpoint`) verifies every checksum; any open or read
 problem raises :class:`CheckpointError` naming the file and the dataset.
@@ -22,24 +25,19 @@ problem raises :class:`CheckpointError` naming the file and the dataset.
 from __future__ import annotations
 
 import hashlib
+import io
 import json
-import os
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable
 
 import h5py
 import numpy as np
 
+from rntn_engine.data.atomic_files import FaultHook, write_atomically
 from rntn_engine.data.errors import InputError
 
 FORMAT_NAME = "rntn_engine checkpoint"
 FORMAT_VERSION = 1
-TEMP_SUFFIX = ".tmp"
-
-# Test-only fault injection: a callable(point_name) run at named points of the write
-# (see tests); None in normal use.
-FaultHook = Callable[[str], None]
 
 
 class CheckpointError(InputError):
@@ -71,69 +69,34 @@ def words_checksum(words: list[str]) -> str:
     return _sha256("\0".join(words).encode("utf-8"))
 
 
-def temp_name_for(path: Path) -> Path:
-    """The temporary name a write of ``path`` uses: hidden, same directory, our own suffix."""
-    return path.with_name(f".{path.name}.{os.getpid()}{TEMP_SUFFIX}")
-
-
-def is_our_temp_file(path: Path) -> bool:
-    """True for leftovers of an interrupted :func:`write_checkpoint` (safe to delete)."""
-    name = path.name
-    return name.startswith(".") and name.endswith(TEMP_SUFFIX) and ".h5." in name
-
-
-def fsync_directory(directory: Path) -> None:
-    fd = os.open(directory, os.O_RDONLY)
-    try:
-        os.fsync(fd)
-    finally:
-        os.close(fd)
+def checkpoint_image(content: CheckpointContent) -> io.BytesIO:
+    """The complete HDF5 file of ``content``, built in memory (no disk I/O)."""
+    image = io.BytesIO()
+    with h5py.File(image, "w", libver="latest") as f:
+        f.attrs["format"] = FORMAT_NAME
+        f.attrs["format_version"] = content.format_version
+        f.attrs["written_by"] = "rntn_engine"
+        for key, value in content.arrays.items():
+            value = np.ascontiguousarray(value)
+            ds = f.create_dataset(f"arrays/{key}", data=value)
+            ds.attrs["sha256"] = array_checksum(value)
+            ds.attrs["description"] = content.descriptions.get(f"arrays/{key}", "")
+        for key, words in content.words.items():
+            ds = f.create_dataset(f"words/{key}", data=np.array(words, dtype=object),
+                                  dtype=h5py.string_dtype("utf-8"))
+            ds.attrs["sha256"] = words_checksum(list(words))
+            ds.attrs["description"] = content.descriptions.get(f"words/{key}", "")
+        for key, value in content.records.items():
+            text = json.dumps(value, sort_keys=True, ensure_ascii=False)
+            ds = f.create_dataset(f"records/{key}", data=text, dtype=h5py.string_dtype("utf-8"))
+            ds.attrs["sha256"] = _sha256(text.encode("utf-8"))
+            ds.attrs["description"] = content.descriptions.get(f"records/{key}", "")
+    return image
 
 
 def write_checkpoint(path: Path | str, content: CheckpointContent, fault: FaultHook | None = None) -> None:
     """Write ``content`` to ``path`` atomically (see module docstring). Raises OSError on failure."""
-    path = Path(path)
-    tmp = temp_name_for(path)
-    hit = fault or (lambda point: None)
-    try:
-        hit("before_open")
-        with h5py.File(tmp, "w", libver="latest") as f:
-            f.attrs["format"] = FORMAT_NAME
-            f.attrs["format_version"] = content.format_version
-            f.attrs["written_by"] = "rntn_engine"
-            for key, value in content.arrays.items():
-                value = np.ascontiguousarray(value)
-                ds = f.create_dataset(f"arrays/{key}", data=value)
-                ds.attrs["sha256"] = array_checksum(value)
-                ds.attrs["description"] = content.descriptions.get(f"arrays/{key}", "")
-            hit("mid_write")
-            for key, words in content.words.items():
-                ds = f.create_dataset(f"words/{key}", data=np.array(words, dtype=object),
-                                      dtype=h5py.string_dtype("utf-8"))
-                ds.attrs["sha256"] = words_checksum(list(words))
-                ds.attrs["description"] = content.descriptions.get(f"words/{key}", "")
-            for key, value in content.records.items():
-                text = json.dumps(value, sort_keys=True, ensure_ascii=False)
-                ds = f.create_dataset(f"records/{key}", data=text, dtype=h5py.string_dtype("utf-8"))
-                ds.attrs["sha256"] = _sha256(text.encode("utf-8"))
-                ds.attrs["description"] = content.descriptions.get(f"records/{key}", "")
-            f.flush()
-        hit("before_fsync")
-        fd = os.open(tmp, os.O_RDONLY)
-        try:
-            os.fsync(fd)  # an error here fails this checkpoint; never retried (Linux reports it once)
-        finally:
-            os.close(fd)
-        hit("before_rename")
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            tmp.unlink()
-        except FileNotFoundError:
-            pass
-        raise
-    hit("after_rename")
-    fsync_directory(path.parent)
+    write_atomically(Path(path), checkpoint_image(content).getbuffer(), durable=True, fault=fault)
 
 
 def _fail(path: Path, what: str) -> CheckpointError:

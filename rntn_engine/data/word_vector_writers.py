@@ -19,9 +19,12 @@ from __future__ import annotations
 import gzip
 import os
 import re
+from pathlib import Path
 from typing import BinaryIO, Sequence
 
 import numpy as np
+
+from rntn_engine.data.atomic_files import atomic_output
 
 _BAD_WORD_RE = re.compile(r"[ \t\n\r\x0b\x0c]")  # ASCII whitespace would split the row
 
@@ -89,19 +92,9 @@ def _write_text_rows(out: BinaryIO, words: Sequence[str], values: np.ndarray) ->
 
 
 def _write_atomically(path: str | os.PathLike, compress: bool, write) -> None:
-    final = os.fspath(path)
-    temporary = f"{final}.writing-{os.getpid()}"
-    try:
-        with open(temporary, "wb") as raw:
-            if compress:
-                with gzip.GzipFile(fileobj=raw, mode="wb", mtime=0) as out:
-                    write(out)
-            else:
-                write(raw)
-            raw.flush()
-            os.fsync(raw.fileno())
-        os.replace(temporary, final)
-    except BaseException:
-        if os.path.exists(temporary):
-            os.remove(temporary)
-        raise
+    with atomic_output(Path(path)) as raw:
+        if compress:
+            with gzip.GzipFile(fileobj=raw, mode="wb", mtime=0) as out:
+                write(out)
+        else:
+            write(raw)

@@ -7,7 +7,7 @@
       metrics.jsonl                   one JSON line per evaluation
       checkpoint-step000000112.h5     checkpoints, named by step (newest = largest step)
       model.h5                        the final model, written when the run finishes
-      .checkpoint-step....h5.PID.tmp  leftovers of an interrupted write (cleaned on resume)
+      .NAME.PID.rntn-tmp              leftovers of an interrupted write (cleaned on resume)
 
 Exclusivity: an exclusive ``flock`` on run.lock. The kernel releases it when the
 process dies in any way (SIGKILL and out-of-memory included), so a stale lock of
@@ -25,7 +25,7 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
-from rntn_engine.data.checkpoint_file import fsync_directory, is_our_temp_file
+from rntn_engine.data.atomic_files import fsync_directory, is_our_temp_file, write_atomically
 from rntn_engine.run.run_errors import RunDirectoryError
 
 CONFIG_FILE = "config.toml"
@@ -158,22 +158,25 @@ def lock_is_held(run_dir: Path) -> dict | None:
 
 
 def write_json_atomic(path: Path, value: object) -> None:
-    """Small JSON files (progress heartbeat): temporary file + rename, no fsync (losing one is harmless)."""
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.part")
-    tmp.write_text(json.dumps(value), encoding="utf-8")
-    os.replace(tmp, path)
+    """Small JSON files (progress heartbeat): atomic replace, no fsync (losing one is harmless)."""
+    write_atomically(path, json.dumps(value).encode("utf-8"), durable=False)
+
+
+def write_config_file(run_dir: Path, text: str) -> None:
+    """config.toml, atomically and durably, and only when its content changes."""
+    path = run_dir / CONFIG_FILE
+    try:
+        if path.read_text(encoding="utf-8") == text:
+            return
+    except (OSError, UnicodeDecodeError):
+        pass
+    write_atomically(path, text.encode("utf-8"), durable=True)
 
 
 def rewrite_metrics_log(run_dir: Path, history: list[dict]) -> None:
     """Make metrics.jsonl exactly the checkpoint's history (drops lines of work lost in a crash)."""
-    path = run_dir / METRICS_FILE
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.part")
-    with open(tmp, "w", encoding="utf-8") as fh:
-        for record in history:
-            fh.write(json.dumps(record) + "\n")
-        fh.flush()
-        os.fsync(fh.fileno())
-    os.replace(tmp, path)
+    text = "".join(json.dumps(record) + "\n" for record in history)
+    write_atomically(run_dir / METRICS_FILE, text.encode("utf-8"), durable=True)
 
 
 def append_metrics(run_dir: Path, record: dict) -> None:

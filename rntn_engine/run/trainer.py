@@ -66,6 +66,7 @@ from rntn_engine.run.run_directory import (
     prune_checkpoints,
     remove_leftover_temp_files,
     rewrite_metrics_log,
+    write_config_file,
     write_json_atomic,
 )
 from rntn_engine.run.pretrained_start import extend_with_vector_words, initial_word_vectors, resolve_dim
@@ -401,7 +402,7 @@ def start_training(config: TrainConfig, echo: Callable[[str], None] = print,
     resolve_dim(config)
     run_dir = prepare_new_run_directory(config)
     with RunLock(run_dir):
-        (run_dir / CONFIG_FILE).write_text(config.to_toml(), encoding="utf-8")
+        write_config_file(run_dir, config.to_toml())
         return Trainer(run_dir, config, echo, show_progress).run(None)
 
 
@@ -436,7 +437,7 @@ def resume_training(run_dir: Path, overrides: dict, echo: Callable[[str], None] 
                 echo(f"saved {run_dir / MODEL_FILE}")
             echo(f"run already finished at step {state.step} ({state.finish_reason}); nothing to do")
             return EXIT_FINISHED
-        (run_dir / CONFIG_FILE).write_text(config.to_toml(), encoding="utf-8")
+        write_config_file(run_dir, config.to_toml())
         if checkpoint is not None:
             checkpoint.config = config
         return Trainer(run_dir, config, echo, show_progress).run(checkpoint)
