@@ -85,5 +85,5 @@ def test_a_checkpoint_without_its_starting_vectors_is_refused(small, tmp_path):
     save_checkpoint(broken, c.params, c.vocabulary, c.config, c.adagrad_sums, c.state, c.metrics, c.data_hashes)
     from rntn_engine.data.checkpoint_file import CheckpointError
 
-    with pytest.raises(CheckpointError, match="l2_anchors/L is missing"):
+    with pytest.raises(CheckpointError, match="starting_values/word_vectors is missing"):
         load_checkpoint(broken)

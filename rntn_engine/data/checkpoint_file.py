@@ -37,7 +37,7 @@ from rntn_engine.data.atomic_files import FaultHook, write_atomically
 from rntn_engine.data.errors import InputError
 
 FORMAT_NAME = "rntn_engine checkpoint"
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2  # 2: descriptive dataset names (word_vectors, ...); version 1 files are not read
 
 
 class CheckpointError(InputError):

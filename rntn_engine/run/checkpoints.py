@@ -2,10 +2,11 @@
 
 A checkpoint (data/checkpoint_file.py gives the HDF5 layout) holds:
 
-    arrays/parameters/<name>     L, W, b, V, Ws, bs (model/parameters.py)
-    arrays/adagrad_sums/<name>   AdaGrad's G for each parameter (absent in an exported model)
-    arrays/l2_anchors/L          starting word vectors, when L2 pulls word vectors toward them
-    words/vocabulary             id -> word, row i of L is words[i]
+    arrays/parameters/<stored name>      every parameter, under its descriptive name
+                                         (model/parameters.py: word_vectors is L, classifier_weights is Ws, ...)
+    arrays/adagrad_sums/<stored name>    AdaGrad's G for each parameter (absent in an exported model)
+    arrays/starting_values/word_vectors  the starting word vectors, when L2 pulls word vectors toward them
+    words/vocabulary                     id -> word, row i of L is words[i]
     records/config               the resolved TrainConfig
     records/vocabulary_options   {"lowercase": ..., "min_count": ...}
     records/state                step, epoch, position in the epoch, ... (run layer)
@@ -27,20 +28,10 @@ import numpy as np
 from rntn_engine import __version__
 from rntn_engine.data.checkpoint_file import CheckpointContent, CheckpointError, read_checkpoint, write_checkpoint
 from rntn_engine.data.vocabulary import Vocabulary
-from rntn_engine.model.parameters import ModelShape, Parameters
+from rntn_engine.model.parameters import PARAMETERS, ModelShape, Parameters
 from rntn_engine.run.run_config import ConfigError, TrainConfig, config_from_mapping
 from rntn_engine.run.run_directory import list_checkpoints
 
-PARAMETER_DESCRIPTIONS = {
-    "L": "word vectors, one row per vocabulary id (row 0: unknown word)",
-    "W": "composition matrix, d x 2d",
-    "b": "composition bias, d",
-    "V": "composition tensor, d x 2d x 2d (h_k = x^T V[k] x)",
-    "LM": "word matrices, |V| x d x d, row 0: unknown word (MV-RNN)",
-    "WM": "matrix composition, d x 2d: P = WM [P_left ; P_right] (MV-RNN)",
-    "Ws": "classifier weights, C x d",
-    "bs": "classifier bias, C",
-}
 
 
 def library_versions() -> dict[str, str]:
@@ -64,19 +55,26 @@ class Checkpoint:
     anchors: dict = field(default_factory=dict)  # word array name -> what its L2 term pulls toward
 
 
+STARTING_VALUES = "starting_values"  # group of the arrays an L2 term pulls toward (when not zero)
+
+
 def save_checkpoint(path: Path | str, params: Parameters, vocabulary: Vocabulary, config: TrainConfig,
                     adagrad_sums: Parameters | None = None, state: dict | None = None, metrics: list | None = None,
                     data_hashes: dict | None = None, fault=None, anchors: dict | None = None) -> None:
     content = CheckpointContent()
     for name in params.names():
-        content.arrays[f"parameters/{name}"] = params[name]
-        content.descriptions[f"arrays/parameters/{name}"] = PARAMETER_DESCRIPTIONS[name]
+        spec = PARAMETERS[name]
+        content.arrays[f"parameters/{spec.stored_as}"] = params[name]
+        content.descriptions[f"arrays/parameters/{spec.stored_as}"] = spec.description
         if adagrad_sums is not None:
-            content.arrays[f"adagrad_sums/{name}"] = adagrad_sums[name]
-            content.descriptions[f"arrays/adagrad_sums/{name}"] = f"AdaGrad sum of squared gradients of {name}"
+            content.arrays[f"adagrad_sums/{spec.stored_as}"] = adagrad_sums[name]
+            content.descriptions[f"arrays/adagrad_sums/{spec.stored_as}"] = \
+                f"AdaGrad sum of squared gradients of {spec.symbol} ({spec.stored_as})"
     for name, anchor in (anchors or {}).items():
-        content.arrays[f"l2_anchors/{name}"] = anchor
-        content.descriptions[f"arrays/l2_anchors/{name}"] = f"starting values of {name}, which its L2 term pulls toward"
+        spec = PARAMETERS[name]
+        content.arrays[f"{STARTING_VALUES}/{spec.stored_as}"] = anchor
+        content.descriptions[f"arrays/{STARTING_VALUES}/{spec.stored_as}"] = \
+            f"starting values of {spec.symbol} ({spec.stored_as}), which its L2 term pulls toward"
     content.words["vocabulary"] = list(vocabulary.words)
     content.descriptions["words/vocabulary"] = "vocabulary: word of each row of L"
     content.records["config"] = config.to_dict()
@@ -114,7 +112,7 @@ def load_checkpoint(path: Path | str) -> Checkpoint:
         for group, target in (("parameters", params), ("adagrad_sums", sums)):
             if target is None:
                 continue
-            key = f"{group}/{name}"
+            key = f"{group}/{PARAMETERS[name].stored_as}"
             if key not in content.arrays:
                 raise bad(f"dataset /arrays/{key} is missing")
             value = content.arrays[key]
@@ -124,7 +122,7 @@ def load_checkpoint(path: Path | str) -> Checkpoint:
             target[name] = value
     anchors = {}
     if config.l2_words_toward == "start":
-        key = "l2_anchors/L"
+        key = f"{STARTING_VALUES}/{PARAMETERS['L'].stored_as}"
         if key not in content.arrays:
             raise bad(f"dataset /arrays/{key} is missing (the run pulls word vectors toward their starting values)")
         if content.arrays[key].shape != params.L.shape or content.arrays[key].dtype != params.L.dtype:
