@@ -5,7 +5,7 @@ Nodes are in post-order; ``order`` lists internal nodes by height and ``level_st
 cuts it into levels (see data/batches.py). Every node carries a vector p (d,) and a
 matrix P (d, d).
 
-Forward (Socher, Huval, Manning & Ng 2012), for every node in post-order:
+Forward (MV-RNN, 2012), for every node in post-order:
 
     leaf with word w:   p = L[w],   P = LM[w]
     internal, left child (a, A), right child (b, B):

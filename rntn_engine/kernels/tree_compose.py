@@ -4,7 +4,7 @@ Legend: N nodes in the batch, M internal nodes, d vector size, D = 2d,
 |V| vocabulary size. Nodes are in post-order; ``order`` lists internal nodes by
 height and ``level_start`` cuts it into levels (see data/batches.py).
 
-Forward (Socher et al. 2013, eqs. 2-3), for every node in post-order:
+Forward (RNN; RNTN, 2013), for every node in post-order:
 
     leaf with word w:        p = L[w]
     internal, children l, r: x = [p_l ; p_r]                      (D,)

@@ -31,7 +31,7 @@ Initialisation (seeded, documented in README):
     L  ~ U(-0.1, 0.1)
     W  ~ 0.5 [I I] + U(-r, r),  r = 1/sqrt(D)   (starts near the average of the children)
     V  ~ U(-1/D, 1/D)                           (small: the model starts close to the RNN)
-    Ws ~ U(-s, s),  s = sqrt(6 / (C + d))        (the uniform rule of Glorot-style initialisation, 2010)
+    Ws ~ U(-s, s),  s = sqrt(6 / (C + d))        (uniform fan-in/fan-out scaling, 2010)
     LM[w] = I + U(-0.01, 0.01) elementwise      (near the identity: x = [B a ; A b] starts as [a ; b])
     WM ~ 0.5 [I I] + U(-r, r),  r = 1/sqrt(D)   (like W: a node's matrix starts near the children's average)
     b, bs = 0
