@@ -11,6 +11,7 @@ from rntn_engine.data.atomic_files import is_our_temp_file
 from rntn_engine.data.checkpoint_file import (
     CheckpointContent,
     CheckpointError,
+    CheckpointUnavailableError,
     read_checkpoint,
     write_checkpoint,
 )
@@ -95,7 +96,7 @@ def test_not_a_checkpoint(tmp_path):
     path.write_text("(3 (2 moss) (4 fern))\n")
     with pytest.raises(CheckpointError, match="not a readable HDF5 checkpoint"):
         read_checkpoint(path)
-    with pytest.raises(CheckpointError, match="no such checkpoint file"):
+    with pytest.raises(CheckpointUnavailableError, match="no such checkpoint file"):
         read_checkpoint(tmp_path / "missing.h5")
 
 

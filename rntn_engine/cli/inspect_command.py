@@ -8,8 +8,8 @@ from typing import Annotated
 
 import typer
 
-from rntn_engine.cli.shared_options import JsonOption
 from rntn_engine.cli.app_exit import EXIT_BAD_INPUT
+from rntn_engine.cli.shared_options import JsonOption
 from rntn_engine.cli.tables import render_pairs, render_table
 
 
@@ -19,12 +19,13 @@ def inspect(
 ) -> None:
     """Summarise a checkpoint: format version, model and sizes, position, data hashes, metrics,
     and the result of verifying every dataset's checksum (exit 1 if any fails)."""
-    from rntn_engine.data.checkpoint_file import CheckpointError, read_checkpoint
+    from rntn_engine.data.checkpoint_file import CheckpointError, CheckpointUnavailableError, read_checkpoint
+    from rntn_engine.run.checkpoints import array_layout
 
     try:
-        content = read_checkpoint(checkpoint)
+        content = read_checkpoint(checkpoint, layout=array_layout)
         verified = f"all {len(content.arrays) + len(content.words) + len(content.records)} datasets verified"
-    except CheckpointError as exc:
+    except (CheckpointError, CheckpointUnavailableError) as exc:
         typer.echo(f"{exc}", err=True)
         raise typer.Exit(EXIT_BAD_INPUT)
     config, state = content.records.get("config", {}), content.records.get("state", {})

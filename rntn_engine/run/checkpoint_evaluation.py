@@ -22,7 +22,7 @@ from typing import Callable
 import numpy as np
 
 from rntn_engine.data.batches import encode_treebank, phrase_lengths
-from rntn_engine.data.checkpoint_file import CheckpointError
+from rntn_engine.data.checkpoint_file import CheckpointError, CheckpointUnavailableError
 from rntn_engine.data.errors import InputError
 from rntn_engine.data.tree import Tree
 from rntn_engine.data.treebank_reader import read_trees
@@ -122,7 +122,7 @@ def evaluate_checkpoint(path: str, treebanks: list[str], neutral: int | None = -
     """Score one checkpoint on every treebank (the task a worker runs). Errors become rows."""
     try:
         checkpoint = load_checkpoint(path)
-    except (CheckpointError, OSError) as exc:
+    except (CheckpointError, CheckpointUnavailableError, OSError) as exc:
         return [EvaluationRow(str(path), tb, error=str(exc)) for tb in treebanks]
     state = checkpoint.state or {}
     step, epoch = state.get("step"), state.get("epoch")

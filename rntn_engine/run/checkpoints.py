@@ -28,9 +28,10 @@ import numpy as np
 from rntn_engine import __version__
 from rntn_engine.data.checkpoint_file import CheckpointContent, CheckpointError, read_checkpoint, write_checkpoint
 from rntn_engine.data.vocabulary import Vocabulary
-from rntn_engine.model.parameters import PARAMETERS, ModelShape, Parameters
+from rntn_engine.model.parameters import DTYPES, PARAMETERS, ModelShape, Parameters
 from rntn_engine.run.run_config import ConfigError, TrainConfig, config_from_mapping
 from rntn_engine.run.run_directory import list_checkpoints
+from rntn_engine.run.run_state import RunState
 
 
 
@@ -79,7 +80,7 @@ def save_checkpoint(path: Path | str, params: Parameters, vocabulary: Vocabulary
     content.descriptions["words/vocabulary"] = "vocabulary: word of each row of L"
     content.records["config"] = config.to_dict()
     content.records["vocabulary_options"] = {"lowercase": vocabulary.lowercase, "min_count": vocabulary.min_count}
-    content.records["state"] = state or {}
+    content.records["state"] = state or RunState().to_dict()  # none given: a run that has not started
     content.records["metrics"] = metrics or []
     content.records["data_hashes"] = data_hashes or {}
     content.records["versions"] = library_versions()
@@ -91,9 +92,34 @@ def save_checkpoint(path: Path | str, params: Parameters, vocabulary: Vocabulary
     write_checkpoint(Path(path), content, fault=fault)
 
 
+def array_layout(records: dict, n_words: int) -> tuple[dict, tuple[str, ...]]:
+    """The arrays a checkpoint with these records must hold (data/checkpoint_file.py: ArrayLayout).
+
+    Raises ValueError (or KeyError) when the stored configuration is not a valid one.
+    """
+    config = config_from_mapping(records["config"]).validate(require_data=False)
+    if config.dim < 1:
+        raise ValueError(f"stored dim {config.dim} is not a vector size")
+    if n_words < 1:
+        raise ValueError("the stored vocabulary is empty (it always holds the unknown word)")
+    shape = ModelShape(config.model, n_words, config.dim, config.num_classes, config.dtype)
+    dtype = np.dtype(DTYPES[config.dtype])
+    expected = {}
+    for symbol, dims in shape.shapes().items():
+        for group in ("parameters", "adagrad_sums"):
+            expected[f"{group}/{PARAMETERS[symbol].stored_as}"] = (dims, dtype)
+    if config.l2_words_toward == "start":
+        expected[f"{STARTING_VALUES}/{PARAMETERS['L'].stored_as}"] = (shape.shapes()["L"], dtype)
+    return expected, ("adagrad_sums",)
+
+
 def load_checkpoint(path: Path | str) -> Checkpoint:
-    """Read, verify and rebuild a checkpoint; CheckpointError when it is damaged or inconsistent."""
-    content = read_checkpoint(path)
+    """Read, verify and rebuild a checkpoint.
+
+    CheckpointError when it is damaged or inconsistent (format, checksum, layout, stored configuration
+    or run state); CheckpointUnavailableError when it cannot be read now (busy, permission, I/O).
+    """
+    content = read_checkpoint(path, layout=array_layout)
 
     def bad(what: str) -> CheckpointError:
         return CheckpointError(str(path), what)
@@ -103,34 +129,28 @@ def load_checkpoint(path: Path | str) -> Checkpoint:
         options = content.records["vocabulary_options"]
         vocabulary = Vocabulary(tuple(content.words["vocabulary"]), bool(options["lowercase"]),
                                 int(options["min_count"]))
-    except (KeyError, ConfigError, ValueError) as exc:
-        raise bad(f"incomplete checkpoint: {exc}") from None
+        state = RunState.from_record(content.records["state"])
+        metrics = content.records["metrics"]
+        data_hashes = content.records["data_hashes"]
+        if not isinstance(metrics, list) or not all(isinstance(m, dict) for m in metrics):
+            raise ValueError("stored metrics are not a list of records")
+        if not isinstance(data_hashes, dict):
+            raise ValueError("stored data hashes are not a mapping")
+    except KeyError as exc:
+        raise bad(f"incomplete checkpoint: record {exc} is missing") from None
+    except (ConfigError, ValueError, TypeError) as exc:
+        raise bad(f"invalid checkpoint: {exc}") from None
     shape = ModelShape(config.model, len(vocabulary), config.dim, config.num_classes, config.dtype)
     params = Parameters(shape)
     sums = params.zeros_like() if any(k.startswith("adagrad_sums/") for k in content.arrays) else None
     for name in params.names():
-        for group, target in (("parameters", params), ("adagrad_sums", sums)):
-            if target is None:
-                continue
-            key = f"{group}/{PARAMETERS[name].stored_as}"
-            if key not in content.arrays:
-                raise bad(f"dataset /arrays/{key} is missing")
-            value = content.arrays[key]
-            if value.shape != target[name].shape or value.dtype != target[name].dtype:
-                raise bad(f"dataset /arrays/{key} is {value.shape} {value.dtype}, expected "
-                          f"{target[name].shape} {target[name].dtype}")
-            target[name] = value
+        params[name] = content.arrays[f"parameters/{PARAMETERS[name].stored_as}"]
+        if sums is not None:
+            sums[name] = content.arrays[f"adagrad_sums/{PARAMETERS[name].stored_as}"]
     anchors = {}
     if config.l2_words_toward == "start":
-        key = f"{STARTING_VALUES}/{PARAMETERS['L'].stored_as}"
-        if key not in content.arrays:
-            raise bad(f"dataset /arrays/{key} is missing (the run pulls word vectors toward their starting values)")
-        if content.arrays[key].shape != params.L.shape or content.arrays[key].dtype != params.L.dtype:
-            raise bad(f"dataset /arrays/{key} is {content.arrays[key].shape} {content.arrays[key].dtype}, expected "
-                      f"{params.L.shape} {params.L.dtype}")
-        anchors["L"] = content.arrays[key]
-    return Checkpoint(params, vocabulary, config, sums, content.records.get("state", {}),
-                      content.records.get("metrics", []), content.records.get("data_hashes", {}),
+        anchors["L"] = content.arrays[f"{STARTING_VALUES}/{PARAMETERS['L'].stored_as}"]
+    return Checkpoint(params, vocabulary, config, sums, state.to_dict(), list(metrics), dict(data_hashes),
                       content.records.get("versions", {}), str(path), anchors)
 
 

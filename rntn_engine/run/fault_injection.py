@@ -1,6 +1,9 @@
-"""Test-only fault injection in the checkpoint writer, driven by environment variables.
+"""Test-only fault injection in the checkpoint writer and the trainer, driven by environment variables.
 
-    RNTN_FAULT_POINT   before_open | mid_write | before_fsync | before_rename | after_rename | mid_prune
+    RNTN_FAULT_POINT   checkpoint writes: before_open | mid_write | before_fsync | before_rename | after_rename
+                       | mid_prune;  trainer: data_loaded (after the treebanks are read) | final_model (just
+                       before the final model file is written) | run_file:NAME (before a write of the run
+                       file NAME: config.toml, metrics.jsonl, progress.json)
     RNTN_FAULT_AFTER   act on the Nth time that point is reached in this process (default 1)
     RNTN_FAULT_ACTION  kill (SIGKILL this process) | term (SIGTERM this process, then carry on)
                        | enospc (raise "No space left on device")

@@ -16,6 +16,7 @@ a dead trainer is simply taken over by the next one.
 
 from __future__ import annotations
 
+import errno
 import fcntl
 import json
 import os
@@ -102,7 +103,11 @@ class RunLock:
         self._fd: int | None = None
 
     def acquire(self) -> "RunLock":
-        fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
+        try:  # never through a symbolic link: it could point at a file of someone else's
+            fd = os.open(self.path, os.O_RDWR | os.O_CREAT | os.O_NOFOLLOW | getattr(os, "O_CLOEXEC", 0), 0o644)
+        except OSError as exc:
+            what = "is a symbolic link; remove it" if exc.errno == errno.ELOOP else (exc.strerror or str(exc))
+            raise RunDirectoryError(f"{self.path}: cannot take the run's lock ({what})") from None
         try:
             fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
         except OSError:
@@ -110,9 +115,12 @@ class RunLock:
             os.close(fd)
             raise RunDirectoryError(f"{self.path.parent}: another trainer is running in this run directory"
                                     f"{holder}; wait for it or stop it first") from None
-        os.ftruncate(fd, 0)
-        os.write(fd, json.dumps({"pid": os.getpid(), "host": socket.gethostname(),
-                                 "since": time.time()}).encode())
+        try:
+            os.ftruncate(fd, 0)
+            os.write(fd, json.dumps({"pid": os.getpid(), "host": socket.gethostname(),
+                                     "since": time.time()}).encode())
+        except OSError:
+            pass  # the holder's name is a courtesy; the flock is the lock
         self._fd = fd
         return self
 

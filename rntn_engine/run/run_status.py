@@ -10,6 +10,7 @@ import json
 import time
 from pathlib import Path
 
+from rntn_engine.data.checkpoint_file import CheckpointUnavailableError
 from rntn_engine.run.checkpoints import newest_valid_checkpoint
 from rntn_engine.run.run_directory import METRICS_FILE, PROGRESS_FILE, list_checkpoints, lock_is_held
 from rntn_engine.run.trainer import stored_config
@@ -36,8 +37,11 @@ def run_status(run_dir: Path) -> dict:
             progress = json.loads((run_dir / PROGRESS_FILE).read_text(encoding="utf-8"))
         except ValueError:
             progress = {}
-    newest, damaged_files = newest_valid_checkpoint(run_dir)
-    damaged = [str(exc) for _, exc in damaged_files]
+    try:
+        newest, damaged_files = newest_valid_checkpoint(run_dir)
+        damaged = [str(exc) for _, exc in damaged_files]
+    except CheckpointUnavailableError as exc:  # busy or unreadable now: say so, change nothing
+        newest, damaged = None, [str(exc)]
     checkpoint_state, checkpoint_name = None, None
     if newest is not None:
         checkpoint_state, checkpoint_name, config = newest.state, Path(newest.path).name, newest.config
