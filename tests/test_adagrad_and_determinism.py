@@ -11,7 +11,7 @@ from rntn_engine.model.parameters import ModelShape, Parameters
 
 
 def test_adagrad_matches_hand_computed_steps():
-    # Published rule (Duchi, Hazan & Singer 2011, diagonal form): G += g^2; theta -= lr g / (sqrt(G) + eps).
+    # Published rule (AdaGrad, 2011, diagonal form): G += g^2; theta -= lr g / (sqrt(G) + eps).
     # Expected values computed here by hand, lr = 0.1, eps = 0 (no source beyond the rule itself):
     #   theta0 = 1.0, gradients 2, then 1, then -2
     #   step 1: G = 4,  theta = 1 - 0.1 * 2 / 2           = 0.9
