@@ -309,6 +309,8 @@ class Trainer:
                     state.step += 1
                     state.position += len(tree_ids)
                     state.epoch_loss += loss * len(tree_ids)
+                    if self.fault is not None:
+                        self.fault("step")  # tests only: a kill or signal after exactly N steps
                     nodes_epoch_session += nodes
                     bar.update(len(tree_ids))
                     # --- log progress; checkpoint by steps or by wall time ---------------------------------
