@@ -85,14 +85,27 @@ def epoch_order(seed: int, epoch: int, n_trees: int) -> np.ndarray:
 
 @dataclass
 class RunState:
-    """Where a run is. Saved in every checkpoint; every field decides the future."""
+    """Where a run is. Saved in every checkpoint; each field changes what a resumed run does
+    later (tests/test_checkpoint_fields_matter.py changes each one and watches that outcome):
+
+        step, epoch, position    which trees come next; the steps checkpoints and records carry
+        epoch_loss               the train_loss recorded at the end of the epoch
+        best_value               whether a later evaluation counts as an improvement
+        best_checkpoint          which checkpoint pruning keeps besides the newest ones
+                                 (its name holds the step of the best evaluation)
+        evaluations_without_improvement   when early stopping ends the run
+        finished, finish_reason  whether a resume trains at all; only "all epochs done" goes on
+                                 when more --epochs are asked for
+        training_seconds         kept although it decides no number of training: the
+                                 wall_seconds of every later metrics record count from it, so
+                                 the time of all invocations adds up
+    """
 
     step: int = 0  # minibatch updates done
     epoch: int = 0  # current epoch, 0-based (= epochs completed when position is 0)
     position: int = 0  # trees of the current epoch already trained on
     epoch_loss: float = 0.0  # sum over this epoch's minibatches of loss x trees, so far
     best_value: float | None = None  # best value of best_metric so far
-    best_step: int | None = None  # step of the best evaluation
     best_checkpoint: str = ""  # file name of the best checkpoint
     evaluations_without_improvement: int = 0  # for early stopping
     finished: bool = False  # the run is complete (all epochs, or stopped early)
@@ -334,7 +347,7 @@ class Trainer:
                 state.position, state.epoch_loss = 0, 0.0
                 value = record.get(config.best_metric)
                 if value is not None and (state.best_value is None or value > state.best_value):
-                    state.best_value, state.best_step = value, state.step
+                    state.best_value = value
                     state.best_checkpoint = checkpoint_name(state.step)
                     state.evaluations_without_improvement = 0
                 elif value is not None:
