@@ -1,5 +1,5 @@
 """numba's on-disk kernel cache: damaged files recompile instead of crashing; an unwritable
-cache directory still runs (RELIABILITY.md, point 8)."""
+cache directory still runs."""
 
 import os
 import subprocess
