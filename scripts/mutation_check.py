@@ -34,7 +34,6 @@ import argparse
 import datetime
 import os
 import platform
-import re
 import shutil
 import subprocess
 import sys
@@ -42,6 +41,7 @@ import tempfile
 import time
 from dataclasses import dataclass
 from pathlib import Path
+from xml.etree import ElementTree
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -110,6 +110,11 @@ MUTATIONS = [
              "return np.arange(n_trees)",
              "every epoch in file order",
              ("tests/test_epoch_order.py",)),
+    Mutation("trainer-no-shuffle", "rntn_engine/run/trainer.py",
+             "order = epoch_order(config.seed, state.epoch, bank.n_trees)",
+             "order = np.arange(bank.n_trees)",
+             "training walks the trees in file order (epoch_order itself intact)",
+             ("tests/test_epoch_order.py",)),
     Mutation("trainer-ignores-epoch", "rntn_engine/run/trainer.py",
              "order = epoch_order(config.seed, state.epoch, bank.n_trees)",
              "order = epoch_order(config.seed, 0, bank.n_trees)",
@@ -175,9 +180,6 @@ MUTATIONS = [
              ("tests/test_cli_gradcheck.py",)),
 ]
 
-FAILED_LINE = re.compile(r"^FAILED (\S+?)(?: - |$)", re.MULTILINE)
-
-
 def copy_repository(target: Path) -> None:
     """The repository's files (tracked, and untracked but not ignored) copied to ``target``, times kept."""
     listed = subprocess.run(["git", "ls-files", "-co", "--exclude-standard", "-z"], cwd=REPO, capture_output=True,
@@ -202,20 +204,38 @@ def check_table(root: Path, mutations: list[Mutation]) -> list[str]:
     return problems
 
 
+def first_failure(junit: Path) -> str | None:
+    """``file::test`` of the first failed test in pytest's JUnit XML report, or None."""
+    if not junit.is_file():
+        return None
+    for case in ElementTree.parse(junit).getroot().iter("testcase"):
+        if case.find("failure") is not None:
+            module = case.get("classname", "")
+            parts = module.split(".")
+            # classname is "tests.test_x" or "tests.test_x.TestClass"
+            file_parts = parts[:2] if len(parts) > 1 else parts
+            rest = parts[2:]
+            return "/".join(file_parts) + ".py::" + "::".join(rest + [case.get("name", "")])
+    return None
+
+
 def run_pytest(root: Path, targets: list[str], env: dict, timeout: float) -> tuple[str, str, float]:
     """(verdict, detail, seconds): verdict 'pass', 'fail' (detail: first failing test), 'error' or 'timeout'."""
+    junit = root.parent / "last-run.xml"
+    junit.unlink(missing_ok=True)
     start = time.monotonic()
     try:
-        done = subprocess.run([sys.executable, "-m", "pytest", "-x", "-q", "-rf", "-p", "no:cacheprovider",
-                               *targets], cwd=root, env=env, capture_output=True, text=True, timeout=timeout)
+        done = subprocess.run([sys.executable, "-m", "pytest", "-x", "-q", "-p", "no:cacheprovider",
+                               f"--junitxml={junit}", *targets], cwd=root, env=env, capture_output=True, text=True,
+                              timeout=timeout)
     except subprocess.TimeoutExpired:
         return "timeout", f"no result within {timeout:.0f} s", time.monotonic() - start
     seconds = time.monotonic() - start
     if done.returncode == 0:
         return "pass", "", seconds
-    failed = FAILED_LINE.findall(done.stdout)
+    failed = first_failure(junit)
     if done.returncode == 1 and failed:
-        return "fail", failed[0], seconds
+        return "fail", failed, seconds
     tail = (done.stdout + done.stderr).strip().splitlines()[-3:]
     return "error", f"pytest exit {done.returncode}: " + " | ".join(tail), seconds
 
@@ -236,7 +256,7 @@ def main() -> int:
         return 2
     if args.list:
         for m in chosen:
-            print(f"{m.name:<28} {m.path:<42} {m.what}")
+            print(f"{m.name:<28} {m.path:<44} {m.what}")
         return 0
     problems = check_table(REPO, chosen)
     if problems:
@@ -284,7 +304,7 @@ def main() -> int:
         else:
             result = f"NOT JUDGED ({verdict}): {detail}"
             unjudged += 1
-        print(f"{n:>3}/{len(chosen)} {m.name:<28} {m.path.removeprefix('rntn_engine/'):<30} {result}  ({seconds:.0f} s)",
+        print(f"{n:>3}/{len(chosen)} {m.name:<28} {m.path.removeprefix('rntn_engine/'):<32} {result}  ({seconds:.0f} s)",
               flush=True)
     total = time.monotonic() - started
     caught = len(chosen) - survivors - unjudged
