@@ -9,8 +9,8 @@ labelled), then for each vector size, dtype and thread count measures:
   * training throughput: internal nodes/s, trees/s, seconds per epoch (minibatches of
     --batch-size trees, AdaGrad step included), median of --repeats timed passes;
   * forward-only (evaluation) throughput, trees/s;
-  * effective GFLOP/s = 24 d^3 x internal nodes / seconds (the nominal count of
-    DESIGN.md: about 4d^3 multiply-adds forward and 8d^3 backward for the tensor,
+  * effective GFLOP/s = 24 d^3 x internal nodes / seconds (the nominal count:
+    about 4d^3 multiply-adds forward and 8d^3 backward for the tensor,
     2 flops each; everything O(d^2) is ignored);
   * NumPy's dense matrix-multiply GFLOP/s (2 n^3 / s, n = --matmul-size, same dtype and
     thread count) and the ratio effective / matmul;
@@ -53,7 +53,7 @@ from rntn_engine.run.checkpoints import load_checkpoint, save_checkpoint
 from rntn_engine.run.evaluation import predict_treebank
 from rntn_engine.run.run_config import TrainConfig
 
-NOMINAL_FLOPS_PER_NODE = 24  # x d^3, per internal node per training step (DESIGN.md)
+NOMINAL_FLOPS_PER_NODE = 24  # x d^3, per internal node per training step (module docstring)
 
 
 def synthetic_treebank(path: Path, n_trees: int, vocab_size: int, seed: int) -> None:

@@ -54,8 +54,7 @@ def inspect(
     for key, digest in summary["data_hashes"].items():
         pairs.append((key, f"{config.get(key, '')} sha256 {digest[:16]}..."))
     if state.get("best_value") is not None:
-        pairs.append(("best", f"{config.get('best_metric')} {state['best_value']:.4f} at step {state['best_step']} "
-                              f"({state['best_checkpoint']})"))
+        pairs.append(("best", f"{config.get('best_metric')} {state['best_value']:.4f} in {state['best_checkpoint']}"))
     typer.echo(render_pairs(pairs))
     if summary["metrics"]:
         rows = [(m["epoch"], m["step"], f"{m['train_loss']:.4f}",

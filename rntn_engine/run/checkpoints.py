@@ -13,6 +13,11 @@ A checkpoint (data/checkpoint_file.py gives the HDF5 layout) holds:
     records/metrics              list of evaluation records so far
     records/data_hashes          SHA-256 of each data file the run read
     records/versions             library versions that wrote the file
+
+Each of these decides something a resumed run does (tests/test_checkpoint_fields_matter.py),
+except two kept for the person reading the file: ``versions`` and the ``min_count`` of
+``vocabulary_options`` (the saved word list already is its result). ``metrics`` decide no
+number of training; metrics.jsonl, `rntn report` and `rntn status` are rebuilt from them.
 """
 
 from __future__ import annotations

@@ -20,14 +20,28 @@ _CHECKPOINT_NAME = re.compile(r"^checkpoint-step\d{9,}\.h5$")
 
 @dataclass
 class RunState:
-    """Where a run is. Saved in every checkpoint; restored at one point before the training loop."""
+    """Where a run is. Saved in every checkpoint and restored at one point before the training loop;
+    each field changes what a resumed run does later (tests/test_checkpoint_fields_matter.py changes
+    each one and watches that outcome):
+
+        step, epoch, position    which trees come next; the steps checkpoints and records carry
+        epoch_loss               the train_loss recorded at the end of the epoch
+        best_value               whether a later evaluation counts as an improvement
+        best_checkpoint          which checkpoint pruning keeps besides the newest ones
+                                 (its name holds the step of the best evaluation)
+        evaluations_without_improvement   when early stopping ends the run
+        finished, finish_reason  whether a resume trains at all; only "all epochs done" goes on
+                                 when more --epochs are asked for
+        training_seconds         kept although it decides no number of training: the
+                                 wall_seconds of every later metrics record count from it, so
+                                 the time of all invocations adds up
+    """
 
     step: int = 0  # minibatch updates done
     epoch: int = 0  # current epoch, 0-based (= epochs completed when position is 0)
     position: int = 0  # trees of the current epoch already trained on
     epoch_loss: float = 0.0  # sum over this epoch's minibatches of loss x trees, so far
     best_value: float | None = None  # best value of best_metric so far
-    best_step: int | None = None  # step of the best evaluation
     best_checkpoint: str = ""  # file name of the best checkpoint
     evaluations_without_improvement: int = 0  # for early stopping
     finished: bool = False  # the run is complete (all epochs, or stopped early)
@@ -56,10 +70,6 @@ class RunState:
         _number("training_seconds", state.training_seconds, minimum=0.0)
         if state.best_value is not None:
             _number("best_value", state.best_value)
-        if state.best_step is not None:
-            _count("best_step", state.best_step)
-            if state.best_step > state.step:
-                raise ValueError(f"run state best_step {state.best_step} is after step {state.step}")
         if not isinstance(state.best_checkpoint, str) or (state.best_checkpoint and
                                                           not _CHECKPOINT_NAME.match(state.best_checkpoint)):
             raise ValueError(f"run state best_checkpoint {state.best_checkpoint!r} is not a checkpoint file name")

@@ -6,7 +6,8 @@ Fine-grained accuracy compares the C-way argmax with the gold class. Binary
 accuracy (the two-sided view of a C-class sentiment scale) leaves out nodes whose
 gold class is the neutral one, maps gold classes to their side (negative or
 positive), and predicts the side whose classes have the larger total probability
-(the neutral class's probability counts for neither side). The sides come from a
+(the neutral class's probability counts for neither side); equal totals predict the
+negative side. The sides come from a
 :class:`LabelScheme`; by default for C classes (``LabelScheme.for_classes``):
 
     C odd  (5, 3, ...): neutral = C // 2, negative = 0 .. C//2 - 1, positive = C//2 + 1 .. C-1

@@ -335,6 +335,8 @@ class Trainer:
                     state.step += 1
                     state.position += len(tree_ids)
                     state.epoch_loss += loss * len(tree_ids)
+                    if self.fault is not None:
+                        self.fault("step")  # tests only: a kill or signal after exactly N steps
                     nodes_epoch_session += nodes
                     bar.update(len(tree_ids))
                     # --- log progress; checkpoint by steps or by wall time ---------------------------------
@@ -358,7 +360,7 @@ class Trainer:
                 state.position, state.epoch_loss = 0, 0.0
                 value = record.get(config.best_metric)
                 if value is not None and (state.best_value is None or value > state.best_value):
-                    state.best_value, state.best_step = value, state.step
+                    state.best_value = value
                     state.best_checkpoint = checkpoint_name(state.step)
                     state.evaluations_without_improvement = 0
                 elif value is not None:
