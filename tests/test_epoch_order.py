@@ -16,6 +16,7 @@ from demo_slices import write_demo_slices
 from rntn_engine.cli.app import main
 from rntn_engine.model.adagrad import AdaGrad
 from rntn_engine.model.objective import L2Strengths, TreeModelObjective, split_into_chunks
+from rntn_engine.model.parameters import Gradient
 from rntn_engine.run.checkpoints import load_checkpoint
 from rntn_engine.run.run_directory import checkpoint_name
 from rntn_engine.run.trainer import epoch_order, load_training_data
@@ -80,7 +81,7 @@ def one_step(before, tree_ids):
     l2 = L2Strengths(config.l2_words, config.l2_compose, config.l2_tensor, config.l2_classifier,
                      config.l2_word_matrices)
     objective = TreeModelObjective(params, l2)
-    grads = params.zeros_like()
+    grads = Gradient(params.shape)
     objective.loss_and_gradient(params, grads, split_into_chunks(data.train, np.asarray(tree_ids), config.grad_chunks),
                                 include_l2=False)
     objective.close()

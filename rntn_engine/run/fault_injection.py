@@ -26,7 +26,9 @@ import errno
 import os
 import signal
 
-POINTS = ("step", "before_open", "mid_write", "before_fsync", "before_rename", "after_rename", "mid_prune")
+POINTS = ("step", "data_loaded", "final_model", "before_open", "mid_write", "before_fsync", "before_rename",
+          "after_rename", "mid_prune")
+RUN_FILE_POINT = "run_file:"  # followed by the run file's name: run_file:config.toml
 ACTIONS = ("kill", "term", "int", "enospc")
 
 
@@ -47,7 +49,7 @@ def fault_from_environment():
     afters = [int(a) for a in _per_point(os.environ.get("RNTN_FAULT_AFTER", "1"), len(points), "RNTN_FAULT_AFTER")]
     actions = _per_point(os.environ.get("RNTN_FAULT_ACTION", "kill"), len(points), "RNTN_FAULT_ACTION")
     for point, action in zip(points, actions):
-        if point not in POINTS or action not in ACTIONS:
+        if (point not in POINTS and not point.startswith(RUN_FILE_POINT)) or action not in ACTIONS:
             raise ValueError(f"unknown fault point {point!r} or action {action!r}")
     plan = {point: (after, action) for point, after, action in zip(points, afters, actions)}
     seen = {point: 0 for point in plan}
