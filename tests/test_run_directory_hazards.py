@@ -148,3 +148,30 @@ def test_sigterm_while_the_final_model_is_written_finishes_the_run(treebanks, tm
                           capture_output=True, text=True, env=env)
     assert done.returncode == 0, done.stderr  # the run is complete: its model file is written
     assert load_checkpoint(run_dir / "model.h5").state["finished"]
+
+
+def test_a_moved_data_file_with_the_same_content_is_accepted_and_another_refused(treebanks, tmp_path, capsys):
+    data = tmp_path / "data"
+    data.mkdir()
+    shutil.copy(treebanks / "train.trees", data / "train.trees")
+    run_dir = tmp_path / "run"
+    assert main(["train", "--train-file", str(data / "train.trees"), "--dim", "3", "--epochs", "2",
+                 "--batch-size", "10", "--run-dir", str(run_dir), "--no-progress", "--time-limit", "0.001s"]) == 75
+    (data / "train.trees").rename(tmp_path / "moved.trees")
+    assert main(["resume", str(run_dir), "--no-progress"]) == 1
+    err = capsys.readouterr().err
+    assert "train.trees" in err and f"rntn resume {run_dir} --train-file NEW_PATH" in err
+    other = tmp_path / "other.trees"
+    other.write_text((tmp_path / "moved.trees").read_text() + "(3 (2 the) (3 ferns))\n")
+    assert main(["resume", str(run_dir), "--no-progress", "--train-file", str(other)]) == 1
+    assert "is not the file the run was trained on" in capsys.readouterr().err
+    assert main(["resume", str(run_dir), "--no-progress", "--time-limit", "0",
+                 "--train-file", str(tmp_path / "moved.trees")]) == 0
+    assert load_checkpoint(run_dir / "model.h5").config.train_file == str(tmp_path / "moved.trees")
+
+
+def test_data_paths_are_stored_absolute(treebanks, tmp_path):
+    run = run_cli("train", "--train-file", "train.trees", "--dim", "3", "--epochs", "0", "--run-dir",
+                  str(tmp_path / "run"), "--no-progress", cwd=treebanks)
+    assert run.returncode == 0, run.stderr
+    assert load_checkpoint(tmp_path / "run" / "model.h5").config.train_file == str(treebanks / "train.trees")

@@ -2,6 +2,7 @@
 
 import re
 from dataclasses import fields
+from pathlib import Path
 
 import pytest
 
@@ -49,7 +50,8 @@ def test_resume_offers_exactly_the_settings_a_resume_may_change(capsys):
         if f.name in RESUME_CHANGEABLE:
             assert re.sub(r"\s+", " ", info_of(f).help) in text, f.name
     assert set(RESUME_CHANGEABLE) == {"epochs", "max_memory_gb", "threads", "checkpoint_every_steps",
-                                      "checkpoint_every_minutes", "keep_checkpoints", "patience", "time_limit"}
+                                      "checkpoint_every_minutes", "keep_checkpoints", "patience", "time_limit",
+                                      "train_file", "dev_file"}
     assert {flag_of(f) for f in SETTINGS} <= option_flags("train")
 
 
@@ -72,13 +74,20 @@ def valid_other_value(f):
 def test_every_resumable_setting_is_accepted_by_resume_and_stored(tmp_path):
     write_demo_slices(tmp_path, 30, 10)
     run_dir = tmp_path / "run"
-    assert main(["train", "--train-file", str(tmp_path / "train.trees"), "--dim", "3", "--epochs", "1",
-                 "--run-dir", str(run_dir), "--no-progress"]) == 0
+    assert main(["train", "--train-file", str(tmp_path / "train.trees"), "--dev-file", str(tmp_path / "dev.trees"),
+                 "--dim", "3", "--epochs", "1", "--run-dir", str(run_dir), "--no-progress"]) == 0
     stored = config_from_mapping(load_config_file(run_dir / "config.toml"))
+    moved = tmp_path / "moved"
+    moved.mkdir()
     args = ["resume", str(run_dir), "--no-progress"]
     wanted = {}
     for f in SETTINGS:
-        if f.name in RESUME_CHANGEABLE:
+        if f.name in ("train_file", "dev_file"):  # the same data at a new place
+            new = moved / Path(getattr(stored, f.name)).name
+            new.write_bytes(Path(getattr(stored, f.name)).read_bytes())
+            wanted[f.name] = str(new)
+            args += [flag_of(f), str(new)]
+        elif f.name in RESUME_CHANGEABLE:
             wanted[f.name] = valid_other_value(f) if f.name != "epochs" else 2
             args += [flag_of(f), str(wanted[f.name])]
     assert main(args) == 0

@@ -68,8 +68,11 @@ def setting(default: Any, help: str, kind: str, **info: Any) -> Any:
 class TrainConfig:
     """Every setting of a training run (one declaration each: see the module docstring)."""
 
-    train_file: str = setting("", "Training treebank: bracketed trees, one per line.", "run")
-    dev_file: str = setting("", "Treebank scored after every epoch (\"\" = none).", "run")
+    train_file: str = setting("", "Training treebank: bracketed trees, one per line (stored as an absolute path; "
+                              "a resume accepts its new location if the file moved, same content only).", "run",
+                              resume=True)
+    dev_file: str = setting("", "Treebank scored after every epoch (\"\" = none; a resume accepts its new "
+                            "location, same content only).", "run", resume=True)
     model: str = setting("rntn", "Model: rnn (matrix composition), rntn (tensor + matrix) or mvrnn (a matrix per "
                          "word and phrase).", "shape", choices=MODELS)
     dim: int = setting(0, "Size d of word and phrase vectors.", "shape", minimum=0,

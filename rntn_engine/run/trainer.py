@@ -106,11 +106,29 @@ class TrainingData:
     hashes: dict[str, str] = field(default_factory=dict)
 
 
-def data_file_hashes(config: TrainConfig) -> dict[str, str]:
-    hashes = {"train_file": file_sha256(config.train_file)}
-    if config.dev_file:
-        hashes["dev_file"] = file_sha256(config.dev_file)
+DATA_FILE_SETTINGS = ("train_file", "dev_file")  # the data a run reads at every start and resume
+
+
+def data_file_hashes(config: TrainConfig, run_dir: Path | None = None) -> dict[str, str]:
+    """SHA-256 of each data file; a missing one is named, with how to point ``run_dir`` at its new place."""
+    hashes = {}
+    for key in DATA_FILE_SETTINGS:
+        path = getattr(config, key)
+        if not path:
+            continue
+        if run_dir is not None and not Path(path).is_file():
+            flag = "--" + key.replace("_", "-")
+            raise InputError(path, f"the run's {key} is not there; if it moved, point the run at it: "
+                                   f"`rntn resume {run_dir} {flag} NEW_PATH` (the content must be the same)")
+        hashes[key] = file_sha256(path)
     return hashes
+
+
+def resolve_data_paths(config: TrainConfig, keys: tuple[str, ...] = ("train_file", "dev_file", "vectors_file")) -> None:
+    """Store data paths absolute, so the run can be resumed from any working directory."""
+    for key in keys:
+        if getattr(config, key):
+            setattr(config, key, str(Path(getattr(config, key)).resolve()))
 
 
 def load_training_data(config: TrainConfig, vocabulary: Vocabulary | None = None) -> TrainingData:
@@ -428,6 +446,7 @@ def start_training(config: TrainConfig, echo: Callable[[str], None] = print,
     error, the memory guard) removes what it created, so the same command can simply be run again.
     """
     config.validate()
+    resolve_data_paths(config)
     stop = stop or StopRequest()
     with stop:
         resolve_dim(config)
@@ -475,15 +494,22 @@ def resume_training(run_dir: Path, overrides: dict, echo: Callable[[str], None] 
                     raise RunDirectoryError(f"{run_dir / CONFIG_FILE}: differs from the checkpoint in "
                                             f"{', '.join(differing)}; restore it or start a new run")
                 config = checkpoint.config
-                changed = [k for k, v in data_file_hashes(config).items() if checkpoint.data_hashes.get(k) != v]
-                if changed and not allow_changed_data:
-                    raise RunDirectoryError(f"{run_dir}: the content of {', '.join(changed)} changed since the "
-                                            f"checkpoint was written; pass --allow-changed-data to continue anyway")
             else:
                 echo(f"no checkpoint in {run_dir} (stopped before its first one): starting the run from the "
                      f"beginning")
+            moved = {k: v for k, v in overrides.items() if k in DATA_FILE_SETTINGS}
             config = config_from_mapping(overrides, config)
+            resolve_data_paths(config, tuple(moved))
             config.validate()
+            if checkpoint is not None:
+                hashes = data_file_hashes(config, run_dir)
+                changed = [k for k, v in hashes.items() if checkpoint.data_hashes.get(k) != v]
+                if changed and not allow_changed_data:
+                    what = ("is not the file the run was trained on" if set(changed) <= set(moved) else
+                            "changed since the checkpoint was written")
+                    paths = ", ".join(getattr(config, k) for k in changed)
+                    raise RunDirectoryError(f"{run_dir}: the content of {', '.join(changed)} {what} ({paths}); "
+                                            f"pass --allow-changed-data to continue anyway")
             if checkpoint is not None and finished_with_nothing_to_do(checkpoint, config.epochs):
                 state = RunState.from_record(checkpoint.state)
                 if not (run_dir / MODEL_FILE).exists():  # killed between the last checkpoint and the model file
