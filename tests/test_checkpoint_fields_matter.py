@@ -12,7 +12,7 @@ Every setting that changes the numbers is given on the command line, so a change
 leaves the scenario as it is.
 
 Outcomes compared (none of them is the changed field itself):
-    train losses     train_loss of the evaluation records written after the change
+    train losses     train_loss (and train_l2) of the evaluation records written after the change
     schedule         (epoch, step) of the records written after the change: how far the run went
     kept files       the checkpoint files left in the run directory at the end
     metrics log      metrics.jsonl at the end, timing columns left out
@@ -57,7 +57,7 @@ def train_args(root, run_dir):
     return ["train", "--train-file", str(root / "train.trees"), "--dev-file", str(root / "dev.trees"),
             "--dim", "4", "--dtype", "float64", "--lr", "0.05", "--epochs", "10", "--batch-size", "10",
             "--patience", "3", "--best-metric", "dev_fine_root", "--checkpoint-every-steps", "4",
-            "--keep-checkpoints", "2", "--l2-words", "1e-4", "--l2-compose", "1e-3", "--l2-tensor", "1e-3",
+            "--keep-checkpoints", "2", "--final-model", "last", "--l2-words", "1e-4", "--l2-compose", "1e-3", "--l2-tensor", "1e-3",
             "--l2-classifier", "1e-4", "--grad-chunks", "2", "--adagrad-eps", "1e-6", "--seed", "0",
             "--run-dir", str(run_dir), "--no-progress"]
 
@@ -122,6 +122,10 @@ def train_losses(code, run_dir, after_step):
     return [m["train_loss"] for m in later_records(run_dir, after_step)]
 
 
+def train_l2s(code, run_dir, after_step):
+    return [m["train_l2"] for m in later_records(run_dir, after_step)]
+
+
 def schedule(code, run_dir, after_step):
     return [(m["epoch"], m["step"]) for m in later_records(run_dir, after_step)]
 
@@ -183,6 +187,8 @@ PERTURBATIONS = {
     "state.epoch": (set_state("epoch", lambda e: e + 1), schedule, "stopped", ()),
     "state.position": (set_state("position", lambda p: p + 10), train_losses, "stopped", ()),
     "state.epoch_loss": (set_state("epoch_loss", lambda x: x + 1.0), train_losses, "stopped", ()),
+    "state.epoch_labelled_nodes": (set_state("epoch_labelled_nodes", lambda n: n + 7), train_losses, "stopped", ()),
+    "state.epoch_l2": (set_state("epoch_l2", lambda x: x + 1.0), train_l2s, "stopped", ()),
     # 0.0: epoch 5's dev root accuracy (0.225) becomes an improvement, early stopping waits longer
     "state.best_value": (set_state("best_value", 0.0), schedule, "stopped", ()),
     # pruning keeps step 28 instead of the real best, step 18

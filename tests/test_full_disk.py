@@ -41,7 +41,8 @@ def treebanks(tmp_path_factory):
 
 def train_command(tb: Path, run_dir: str, epochs: int) -> str:
     return (f"{RNTN} train --train-file {tb / 'train.trees'} --dev-file {tb / 'dev.trees'} --dim 3 "
-            f"--epochs {epochs} --batch-size 10 --keep-checkpoints 50 --run-dir {run_dir} --no-progress")
+            f"--epochs {epochs} --batch-size 10 --keep-checkpoints 50 --final-model last --run-dir {run_dir} "
+            f"--no-progress")
 
 
 def run_full_disk_scenario(tb: Path, out: Path) -> str:

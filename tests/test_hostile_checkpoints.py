@@ -224,7 +224,7 @@ def test_a_checkpoint_held_open_for_writing_is_unavailable_not_damaged(finished,
     finally:
         holder.kill()
         holder.wait()
-    assert load_checkpoint(path).state["finished"]  # a killed writer leaves it readable
+    assert load_checkpoint(path).state["step"] > 0  # a killed writer leaves it readable
 
 
 def test_truncated_checkpoint_message_has_no_locking_hint(finished, tmp_path):

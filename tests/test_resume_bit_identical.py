@@ -40,7 +40,7 @@ def treebanks(tmp_path_factory):
 def train_args(treebanks, run_dir, epochs=4, extra=()):
     return ["train", "--train-file", str(treebanks / "train.trees"), "--dev-file", str(treebanks / "dev.trees"),
             "--dim", "4", "--epochs", str(epochs), "--batch-size", "10", "--checkpoint-every-steps", "3",
-            "--keep-checkpoints", "2", "--run-dir", str(run_dir), "--no-progress", *extra]
+            "--keep-checkpoints", "2", "--final-model", "last", "--run-dir", str(run_dir), "--no-progress", *extra]
 
 
 def run_cli(args, env_extra=None, **kw):

@@ -159,7 +159,7 @@ def test_early_stopping_is_recorded_and_survives_resume(treebanks, tmp_path, cap
     # lr so small that dev scores cannot improve after the first evaluation
     code = main(train_args(treebanks, run_dir, epochs=50, extra=("--patience", "2", "--lr", "1e-9")))
     assert code == 0
-    state = load_checkpoint(run_dir / "model.h5").state
+    state = load_checkpoint(list_checkpoints(run_dir)[-1].path).state
     assert state["finish_reason"] == "early stopping" and state["epoch"] == 3
     assert state["evaluations_without_improvement"] == 2
     assert main(["resume", str(run_dir), "--epochs", "60", "--no-progress"]) == 0

@@ -37,6 +37,7 @@ def inspect(
         "parameters": n_params, "state": state, "data_hashes": content.records.get("data_hashes", {}),
         "versions": content.records.get("versions", {}), "metrics": content.records.get("metrics", []),
         "has_optimiser_state": any(k.startswith("adagrad_sums/") for k in content.arrays),
+        "role": file_role(checkpoint.name, state),
     }
     if as_json:
         typer.echo(json.dumps(summary, indent=2))
@@ -50,6 +51,7 @@ def inspect(
              ("model", f"{summary['model']}, d={summary['dim']}, C={summary['num_classes']}, {summary['dtype']}, "
                        f"vocabulary {summary['vocabulary']:,} words, {n_params:,} parameters"),
              ("position", position),
+             ("this file", file_role(checkpoint.name, state)),
              ("written by", ", ".join(f"{k} {v}" for k, v in summary["versions"].items()))]
     for key, digest in summary["data_hashes"].items():
         pairs.append((key, f"{config.get(key, '')} sha256 {digest[:16]}..."))
@@ -62,3 +64,15 @@ def inspect(
                  f"{m['dev_fine_root']:.4f}" if "dev_fine_root" in m else "-") for m in summary["metrics"]]
         typer.echo("")
         typer.echo(render_table(["epoch", "step", "train loss", "dev all-nodes", "dev root"], rows))
+
+
+def file_role(name: str, state: dict) -> str:
+    """What a run file is, from its name and the run state it holds."""
+    from rntn_engine.run.run_directory import BEST_FILE, MODEL_FILE, checkpoint_name
+
+    is_best = bool(state.get("best_checkpoint")) and state.get("best_checkpoint") == checkpoint_name(state.get("step", 0))
+    if name == MODEL_FILE:
+        return "a run's final model: " + ("its best checkpoint" if is_best else "its last parameters")
+    if name == BEST_FILE:
+        return f"a run's best checkpoint ({state.get('best_checkpoint')})"
+    return "a checkpoint" + (", the best of its run when written" if is_best else "")

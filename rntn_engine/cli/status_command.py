@@ -51,6 +51,8 @@ def status(
                                     f"root {latest['dev_fine_root']:.4f}"))
     if info["best_value"] is not None:
         pairs.append(("best", f"{info['best_metric']} {info['best_value']:.4f} in {info['best_checkpoint']}"))
+    for name, holds in info["files"].items():
+        pairs.append((name, holds))
     pairs.append(("checkpoints", f"{info['checkpoints']} (newest valid: {info['newest_checkpoint'] or 'none'})"))
     for problem in info["damaged_checkpoints"]:
         pairs.append(("damaged", problem))

@@ -33,8 +33,11 @@ else:  # pragma: no cover
 from rntn_engine.model.parameters import DTYPES, MODELS
 from rntn_engine.run.stop_signals import parse_duration
 
-# dev scores a run can select its best checkpoint by (all higher-is-better)
-BEST_METRICS = ("dev_fine_root", "dev_fine_all")
+# dev scores a run can select its best checkpoint by; all higher-is-better but those in LOWER_IS_BETTER
+BEST_METRICS = ("dev_fine_root", "dev_fine_all", "dev_binary_root", "dev_binary_all", "dev_macro_f1_root",
+                "dev_macro_f1_all", "dev_loss")
+LOWER_IS_BETTER = ("dev_loss",)
+FINAL_MODELS = ("best", "last")  # what model.h5 holds when a run ends
 # what the L2 term on word vectors pulls toward: zero, or each vector's value at the start of the run
 L2_WORDS_TOWARD = ("zero", "start")
 VECTOR_FORMATS = ("auto", "glove", "word2vec-text", "word2vec-binary")
@@ -120,8 +123,12 @@ class TrainConfig:
                                               "one (0: off).", "run", minimum=0.0, resume=True)
     keep_checkpoints: int = setting(3, "Newest checkpoints kept; the best one is kept as well.", "run", minimum=1,
                                     resume=True)
-    best_metric: str = setting("dev_fine_root", "Dev score that picks the best checkpoint and drives early "
-                               "stopping.", "run", choices=BEST_METRICS)
+    best_metric: str = setting("dev_fine_root", "Dev score that picks the best checkpoint (kept as best.h5) and "
+                               "drives early stopping; dev_loss is the lowest, the others the highest.", "run",
+                               choices=BEST_METRICS)
+    final_model: str = setting("best", "What model.h5 holds when the run ends: the best checkpoint by "
+                               "--best-metric, or the last parameters (without a dev file: always the last).",
+                               "run", choices=FINAL_MODELS, resume=True)
     patience: int = setting(0, "Stop after N evaluations without a better --best-metric (0: never).", "run",
                             minimum=0, resume=True)
     time_limit: str = setting("", "Stop cleanly with a checkpoint after this much wall time per session, e.g. 23h, "

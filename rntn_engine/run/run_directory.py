@@ -6,7 +6,9 @@
       progress.json                   heartbeat of the living trainer (step, epoch, speed), every few seconds
       metrics.jsonl                   one JSON line per evaluation
       checkpoint-step000000112.h5     checkpoints, named by step (newest = largest step)
-      model.h5                        the final model, written when the run finishes
+      best.h5                         the best checkpoint so far by the run's --best-metric
+      model.h5                        the final model, written when the run finishes: the best
+                                      checkpoint (--final-model best, the default) or the last
       .NAME.PID.rntn-tmp              leftovers of an interrupted write (cleaned on resume)
 
 Exclusivity: an exclusive ``flock`` on run.lock. The kernel releases it when the
@@ -34,6 +36,7 @@ LOCK_FILE = "run.lock"
 PROGRESS_FILE = "progress.json"
 METRICS_FILE = "metrics.jsonl"
 MODEL_FILE = "model.h5"
+BEST_FILE = "best.h5"  # the best checkpoint by the run's best_metric (the same file, hard-linked where possible)
 CHECKPOINT_PATTERN = re.compile(r"^checkpoint-step(\d{9,})\.h5$")
 
 

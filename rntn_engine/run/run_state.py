@@ -25,7 +25,9 @@ class RunState:
     each one and watches that outcome):
 
         step, epoch, position    which trees come next; the steps checkpoints and records carry
-        epoch_loss               the train_loss recorded at the end of the epoch
+        epoch_loss, epoch_labelled_nodes, epoch_l2
+                                 the train_loss (cross-entropy per labelled node) and train_l2
+                                 recorded at the end of the epoch
         best_value               whether a later evaluation counts as an improvement
         best_checkpoint          which checkpoint pruning keeps besides the newest ones
                                  (its name holds the step of the best evaluation)
@@ -40,7 +42,9 @@ class RunState:
     step: int = 0  # minibatch updates done
     epoch: int = 0  # current epoch, 0-based (= epochs completed when position is 0)
     position: int = 0  # trees of the current epoch already trained on
-    epoch_loss: float = 0.0  # sum over this epoch's minibatches of loss x trees, so far
+    epoch_loss: float = 0.0  # cross-entropy summed over this epoch's labelled nodes, so far
+    epoch_labelled_nodes: int = 0  # labelled nodes of this epoch's minibatches, so far
+    epoch_l2: float = 0.0  # sum over this epoch's minibatches of the L2 term x trees, so far
     best_value: float | None = None  # best value of best_metric so far
     best_checkpoint: str = ""  # file name of the best checkpoint
     evaluations_without_improvement: int = 0  # for early stopping
@@ -64,9 +68,10 @@ class RunState:
                              f"{'; ' if missing and unknown else ''}"
                              f"{'has unknown fields ' + ', '.join(unknown) if unknown else ''}")
         state = cls(**record)
-        for name in ("step", "epoch", "position", "evaluations_without_improvement"):
+        for name in ("step", "epoch", "position", "evaluations_without_improvement", "epoch_labelled_nodes"):
             _count(name, getattr(state, name))
         _number("epoch_loss", state.epoch_loss)
+        _number("epoch_l2", state.epoch_l2)
         _number("training_seconds", state.training_seconds, minimum=0.0)
         if state.best_value is not None:
             _number("best_value", state.best_value)

@@ -100,3 +100,12 @@ def per_class_scores(confusion: np.ndarray) -> dict[str, np.ndarray]:
     denominator = precision + recall
     f1 = np.divide(2 * precision * recall, denominator, out=np.zeros_like(tp), where=denominator > 0)
     return {"precision": precision, "recall": recall, "f1": f1, "support": support.astype(np.int64)}
+
+
+def macro_f1(confusion: np.ndarray) -> float:
+    """F1 averaged over the classes that occur in the gold labels or the predictions (each class
+    weighs the same, however rare); nan when there are none. From a confusion matrix, so that
+    counts summed over blocks give the same value."""
+    scores = per_class_scores(confusion)
+    present = (confusion.sum(axis=0) + confusion.sum(axis=1)) > 0
+    return float(scores["f1"][present].mean()) if present.any() else float("nan")

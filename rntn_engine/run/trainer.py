@@ -30,6 +30,7 @@ from typing import Callable
 import numpy as np
 from tqdm import tqdm
 
+from rntn_engine.data.atomic_files import fsync_directory, temp_name_for, write_atomically
 from rntn_engine.data.batches import EncodedTreebank, encode_treebank
 from rntn_engine.data.errors import InputError
 from rntn_engine.data.treebank_reader import read_trees
@@ -45,9 +46,10 @@ from rntn_engine.model.parameters import (
     init_parameters,
 )
 from rntn_engine.run.checkpoints import Checkpoint, newest_valid_checkpoint, save_checkpoint
-from rntn_engine.run.evaluation import predict_treebank
+from rntn_engine.run.evaluation import TreebankPredictions, predict_treebank
 from rntn_engine.run.fault_injection import fault_from_environment
 from rntn_engine.run.run_config import (
+    LOWER_IS_BETTER,
     ConfigError,
     RESUME_CHANGEABLE,
     TrainConfig,
@@ -56,6 +58,7 @@ from rntn_engine.run.run_config import (
     load_config_file,
 )
 from rntn_engine.run.run_directory import (
+    BEST_FILE,
     CONFIG_FILE,
     LOCK_FILE,
     METRICS_FILE,
@@ -75,7 +78,7 @@ from rntn_engine.run.run_directory import (
 from rntn_engine.run.pretrained_start import extend_with_vector_words, initial_word_vectors, resolve_dim
 from rntn_engine.run.run_errors import RunDirectoryError, TrainingError
 from rntn_engine.run.run_state import RunState
-from rntn_engine.run.scores import accuracy, majority_class
+from rntn_engine.run.scores import LabelScheme, accuracy, binary_accuracy, confusion_matrix, macro_f1, majority_class
 from rntn_engine.run.stop_signals import EXIT_STOPPED_RESUMABLE, StopRequest, parse_duration
 
 EXIT_FINISHED = 0
@@ -348,11 +351,13 @@ class Trainer:
                         raise TrainingError(f"loss became {loss} at epoch {state.epoch + 1}, step {state.step + 1}; "
                                             f"the last good checkpoint is untouched. Lower --lr (now {config.lr}) "
                                             f"or raise the L2 strengths and start a new run")
-                    loss += optimiser.step_with_l2(params, grads, l2, self.anchors)  # L2, update, zeroing: one pass
+                    penalty = optimiser.step_with_l2(params, grads, l2, self.anchors)  # L2, update, zeroing
                     nodes = sum(c.n_nodes for c in chunks)
                     state.step += 1
                     state.position += len(tree_ids)
-                    state.epoch_loss += loss * len(tree_ids)
+                    state.epoch_loss += loss * len(tree_ids)  # the data term is the mean over the trees
+                    state.epoch_labelled_nodes += sum(int(np.count_nonzero(c.label >= 0)) for c in chunks)
+                    state.epoch_l2 += penalty * len(tree_ids)
                     if self.fault is not None:
                         self.fault("step")  # tests only: a kill or signal after exactly N steps
                     nodes_epoch_session += nodes
@@ -375,9 +380,9 @@ class Trainer:
                 self.write_run_file(METRICS_FILE, lambda: append_metrics(self.run_dir, record))
                 self.echo(format_epoch_line(record))
                 state.epoch += 1
-                state.position, state.epoch_loss = 0, 0.0
+                state.position, state.epoch_loss, state.epoch_labelled_nodes, state.epoch_l2 = 0, 0.0, 0, 0.0
                 value = record.get(config.best_metric)
-                if value is not None and (state.best_value is None or value > state.best_value):
+                if value is not None and value == value and is_better(config.best_metric, value, state.best_value):
                     state.best_value = value
                     state.best_checkpoint = checkpoint_name(state.step)
                     state.evaluations_without_improvement = 0
@@ -387,7 +392,9 @@ class Trainer:
                     state.finished, state.finish_reason = True, "early stopping"
                 elif state.epoch >= config.epochs:
                     state.finished, state.finish_reason = True, "all epochs done"
-                self.save(params, optimiser, state, history, data)
+                saved = self.save(params, optimiser, state, history, data)
+                if state.best_checkpoint == saved.name:
+                    self.write_run_file(BEST_FILE, lambda: keep_as(saved, self.run_dir / BEST_FILE))
                 self.heartbeat(state, bank.n_trees, steps_per_epoch, rate, force=True)
                 if state.finished:
                     break
@@ -402,34 +409,80 @@ class Trainer:
         self.heartbeat(state, bank.n_trees, steps_per_epoch, rate, force=True)
         if self.fault:
             self.fault("final_model")
-        self.write_final_model(params, optimiser, state, history, data)
+        self.write_final_model(params, optimiser.sums, state, history, data.vocabulary, data.hashes, self.anchors)
         return EXIT_FINISHED  # a stop asked for while the final model was written: the run is complete anyway
 
     def evaluate(self, objective: TreeModelObjective, params: Parameters, state: RunState,
                  data: TrainingData, rate: float | None) -> dict:
         record = {"step": state.step, "epoch": state.epoch + 1,
-                  "train_loss": state.epoch_loss / data.train.n_trees,
+                  "train_loss": state.epoch_loss / max(state.epoch_labelled_nodes, 1),
+                  "train_l2": state.epoch_l2 / data.train.n_trees,
                   "wall_seconds": round(state.training_seconds, 3),
                   "nodes_per_second": round(rate, 1) if rate else None}
         if data.dev is not None:
-            dev = predict_treebank(objective, params, data.dev)
-            record.update({f"dev_{k}": v for k, v in dev.fine_scores().items()})
-            record["dev_loss"] = dev.mean_loss()
+            dev = predict_treebank(objective, params, data.dev, keep_probabilities=True)
+            record.update({f"dev_{k}": v for k, v in dev_scores(dev, self.config.num_classes).items()})
         return record
 
-    def write_final_model(self, params: Parameters, optimiser: AdaGrad, state: RunState, history: list[dict],
-                          data: TrainingData) -> None:
+    def write_final_model(self, params: Parameters, sums: Parameters | None, state: RunState, history: list[dict],
+                          vocabulary: Vocabulary, data_hashes: dict, anchors: dict) -> None:
+        """model.h5: the best checkpoint (``final_model = best`` and a best exists), else the last parameters."""
         path = self.run_dir / MODEL_FILE
+        best = self.run_dir / state.best_checkpoint if state.best_checkpoint else None
         try:
-            save_checkpoint(path, params, data.vocabulary, self.config, optimiser.sums, state.to_dict(), history,
-                            data.hashes, fault=self.fault, anchors=self.anchors)
+            if self.config.final_model == "best" and best is not None and best.is_file():
+                keep_as(best, path)
+                self.echo(f"saved {path}: the best checkpoint, {best.name} ({self.config.best_metric} "
+                          f"{state.best_value:.4f}; the last one is {checkpoint_name(state.step)})")
+                return
+            save_checkpoint(path, params, vocabulary, self.config, sums, state.to_dict(), history, data_hashes,
+                            fault=self.fault, anchors=anchors)
         except OSError as exc:
             raise TrainingError(f"{path}: could not write the final model ({exc.strerror or exc}); the run is "
                                 f"finished and its last checkpoint is intact: `rntn resume {self.run_dir}` writes "
                                 f"the model file") from None
-        best = f"; best {self.config.best_metric} {state.best_value:.4f} in {state.best_checkpoint}" \
+        about = f"; best {self.config.best_metric} {state.best_value:.4f} in {state.best_checkpoint}" \
             if state.best_value is not None else ""
-        self.echo(f"saved {path}{best}")
+        self.echo(f"saved {path}: the last parameters{about}")
+
+
+def is_better(metric: str, value: float, best: float | None) -> bool:
+    """Whether ``value`` of the dev score ``metric`` beats the best so far (dev_loss: lower is better)."""
+    if best is None:
+        return True
+    return value < best if metric in LOWER_IS_BETTER else value > best
+
+
+def dev_scores(dev: TreebankPredictions, num_classes: int) -> dict[str, float]:
+    """The dev scores of an evaluation record (keys without the ``dev_`` prefix)."""
+    scheme = LabelScheme.for_classes(num_classes)
+    root = dev.is_root
+    return {**dev.fine_scores(),
+            "binary_all": binary_accuracy(dev.gold, dev.probabilities, scheme),
+            "binary_root": binary_accuracy(dev.gold[root], dev.probabilities[root], scheme),
+            "macro_f1_all": macro_f1(confusion_matrix(dev.gold, dev.predicted, num_classes)),
+            "macro_f1_root": macro_f1(confusion_matrix(dev.gold[root], dev.predicted[root], num_classes)),
+            "loss": dev.mean_loss()}
+
+
+def keep_as(source: Path, target: Path) -> None:
+    """Make ``target`` hold exactly the bytes of ``source``, atomically: a hard link where the filesystem
+    has them (checkpoints are never changed in place, so sharing the file is safe), else a copy."""
+    if target.exists() and os.path.samefile(source, target):
+        return  # already the same file (renaming a hard link onto itself would do nothing, and leave the link)
+    temporary = temp_name_for(target)
+    temporary.unlink(missing_ok=True)  # our own name: a leftover of this process
+    try:
+        os.link(source, temporary)
+    except OSError:
+        write_atomically(target, source.read_bytes())
+        return
+    try:
+        os.replace(temporary, target)
+    except BaseException:
+        temporary.unlink(missing_ok=True)
+        raise
+    fsync_directory(target.parent)
 
 
 def finished_with_nothing_to_do(checkpoint: Checkpoint, epochs: int) -> bool:
@@ -510,16 +563,18 @@ def resume_training(run_dir: Path, overrides: dict, echo: Callable[[str], None] 
                     paths = ", ".join(getattr(config, k) for k in changed)
                     raise RunDirectoryError(f"{run_dir}: the content of {', '.join(changed)} {what} ({paths}); "
                                             f"pass --allow-changed-data to continue anyway")
+            trainer = Trainer(run_dir, config, echo, show_progress, stop)
+            best = RunState.from_record(checkpoint.state).best_checkpoint if checkpoint is not None else ""
+            if best and (run_dir / best).is_file():  # best.h5 may lag its checkpoint after a crash
+                trainer.write_run_file(BEST_FILE, lambda: keep_as(run_dir / best, run_dir / BEST_FILE))
             if checkpoint is not None and finished_with_nothing_to_do(checkpoint, config.epochs):
                 state = RunState.from_record(checkpoint.state)
                 if not (run_dir / MODEL_FILE).exists():  # killed between the last checkpoint and the model file
-                    save_checkpoint(run_dir / MODEL_FILE, checkpoint.params, checkpoint.vocabulary, checkpoint.config,
-                                    checkpoint.adagrad_sums, checkpoint.state, checkpoint.metrics,
-                                    checkpoint.data_hashes, anchors=checkpoint.anchors)
-                    echo(f"saved {run_dir / MODEL_FILE}")
+                    trainer.write_final_model(checkpoint.params, checkpoint.adagrad_sums, state,
+                                              list(checkpoint.metrics), checkpoint.vocabulary,
+                                              checkpoint.data_hashes, checkpoint.anchors)
                 echo(f"run already finished at step {state.step} ({state.finish_reason}); nothing to do")
                 return EXIT_FINISHED
-            trainer = Trainer(run_dir, config, echo, show_progress, stop)
             trainer.write_run_file(CONFIG_FILE, lambda: write_config_file(run_dir, config.to_toml()))
             if checkpoint is not None:
                 checkpoint.config = config
