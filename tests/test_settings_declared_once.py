@@ -51,7 +51,7 @@ def test_resume_offers_exactly_the_settings_a_resume_may_change(capsys):
             assert re.sub(r"\s+", " ", info_of(f).help) in text, f.name
     assert set(RESUME_CHANGEABLE) == {"epochs", "max_memory_gb", "threads", "checkpoint_every_steps",
                                       "checkpoint_every_minutes", "keep_checkpoints", "patience", "time_limit",
-                                      "train_file", "dev_file", "final_model"}
+                                      "train_file", "dev_file", "final_model", "class_names"}
     assert {flag_of(f) for f in SETTINGS} <= option_flags("train")
 
 
@@ -64,6 +64,8 @@ def valid_other_value(f):
         return "5h"
     if isinstance(f.default, bool):
         return not f.default
+    if f.name == "class_names":
+        return "awful,poor,so-so,good,superb"
     if isinstance(f.default, str):
         return f"some-{f.name}"
     if isinstance(f.default, int):

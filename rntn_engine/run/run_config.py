@@ -81,6 +81,8 @@ class TrainConfig:
     dim: int = setting(0, "Size d of word and phrase vectors.", "shape", minimum=0,
                        shown_default="the --vectors file's, else 25")
     num_classes: int = setting(5, "Number of classes C; labels are 0..C-1.", "shape", minimum=2)
+    class_names: str = setting("", "Names of the classes 0..C-1 for tables and figures, separated by commas "
+                               "(\"\" = the class numbers).", "run", resume=True)
     epochs: int = setting(20, "Passes over the training trees.", "run", minimum=0, resume=True)
     batch_size: int = setting(27, "Trees per minibatch.", "result", minimum=1)
     lr: float = setting(0.01, "AdaGrad learning rate.", "result", above=0.0)
@@ -147,9 +149,21 @@ class TrainConfig:
                 raise ConfigError(f"--time-limit: {exc}") from None
         if require_data and not self.train_file:
             raise ConfigError("a training treebank is required (--train-file)")
+        if self.class_names and len(self.names_of_classes()) != self.num_classes:
+            raise ConfigError(f"--class-names gives {len(self.names_of_classes())} names for {self.num_classes} "
+                              f"classes: give one name per class, separated by commas")
+        if self.class_names and (len(set(self.names_of_classes())) != self.num_classes
+                                 or not all(self.names_of_classes())):
+            raise ConfigError("--class-names: every class needs a name of its own (a name is repeated or empty)")
         if (self.extend_vocabulary or self.freeze_vectors) and not self.vectors_file:
             raise ConfigError("--extend-vocabulary and --freeze-vectors need --vectors")
         return self
+
+    def names_of_classes(self) -> list[str]:
+        """The name of each class 0..C-1: from class_names, else the class numbers."""
+        if not self.class_names:
+            return [str(c) for c in range(self.num_classes)]
+        return [name.strip() for name in self.class_names.split(",")]
 
     def resolved_run_dir(self) -> Path:
         if self.run_dir:
