@@ -36,14 +36,13 @@ import numpy as np
 
 from rntn_engine.data.batches import encode_treebank, make_batch
 from rntn_engine.data.sentence_tokens import treebank_tokens
-from rntn_engine.data.tree import Tree
+from rntn_engine.data.tree import Tree, right_branching_tree
 from rntn_engine.data.treebank_reader import parse_tree
 from rntn_engine.data.treebank_writer import format_tree
 from rntn_engine.model.objective import TreeModelObjective, split_into_chunks
 from rntn_engine.run.checkpoint_evaluation import EvaluationRow, evaluate_many, expand_checkpoint_specs, mark_best
 from rntn_engine.run.checkpoints import Checkpoint, load_checkpoint
 from rntn_engine.run.evaluation import PREDICT_CHUNKS
-from rntn_engine.run.prediction import right_branching_tree
 from rntn_engine.run.run_config import TrainConfig, config_from_mapping
 from rntn_engine.run.run_directory import MODEL_FILE, list_checkpoints
 from rntn_engine.run.stop_signals import StopRequest
