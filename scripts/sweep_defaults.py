@@ -11,26 +11,30 @@ folder), and searches the settings one knob at a time (coordinate search):
      strengths multiplied together), then each L2 strength on its own -- train every value
      of its grid with the other knobs at their current choice, on both treebanks, for every
      seed, and keep the value the rule below picks;
-  3. re-check the knobs of --recheck (lr by default) at the final point;
-  4. score the chosen setting once on the test splits (test is never used to choose);
-  5. a short MV-RNN sweep of l2_word_matrices at the chosen setting (demo treebank by default);
-  6. the previous defaults, trained the same way, as a reference row.
+  3. re-check dim, batch_size and lr (--recheck) at the final point, each over its chosen value
+     and that value's neighbours in its grid (the L2 choices may have moved their best values);
+  4. train every setting the re-checks tried with more seeds (--final-seeds) and pick among
+     these finalists by the same rule: two seeds leave differences of about 0.01-0.02 in
+     dev root accuracy within noise, and the finalists are where that matters most;
+  5. score the chosen setting once on the test splits (test is never used to choose);
+  6. a short MV-RNN sweep of l2_word_matrices at the chosen setting (demo treebank by default);
+  7. the previous defaults, trained the same way, as a reference row.
 
 Every run trains --epochs epochs (fixed) with dev scoring after each epoch; a run's score
 is its best checkpoint's (the epoch with the highest dev fine-grained root accuracy, the
 trainer's default --best-metric), with the all-node accuracy of that same epoch. Scores
-are means over --seeds.
+are means over --seeds (--final-seeds from step 4 on).
 
 The rule that picks a value of a knob:
 
   * per treebank, rank the values by mean dev root accuracy (1 = best; ties share the
     better rank); the best value has the lowest rank averaged over the treebanks (ties:
-    the higher root accuracy averaged over the treebanks);
-  * for dim and batch_size, which change the cost of training, take instead the cheapest
+    the higher root accuracy averaged over the treebanks, then the higher all-node accuracy);
+  * for dim and batch_size, and among the finalists (which differ in cost), take instead the cheapest
     value (fewest measured training seconds, summed over the treebanks) whose mean root
     accuracy is within the noise of the best one's on every treebank. The noise of a
     treebank is the standard error of a difference between two seed-means:
-    sqrt(2 s^2 / seeds), s^2 the variance between seeds pooled over all its runs so far.
+    sqrt(2 s^2 / seeds), s^2 the variance between seeds pooled over the stage's own runs.
 
 Results are cached by setting, seed and data hash in --results (JSON lines), so an
 interrupted sweep continues where it stopped and repeated settings are trained once.
@@ -71,17 +75,17 @@ BATCH_SIZES = (8, 16, 32, 64)
 LRS = (0.005, 0.01, 0.02, 0.04, 0.08)
 L2_BASE = 1e-4
 L2_SCALE_MULTIPLIERS = (0.1, 0.3, 1.0, 3.0, 10.0)  # the common scale: every L2 strength times this
-L2_GROUP_MULTIPLIERS = (1 / 3, 1.0, 3.0)  # then each L2 strength on its own, around its current value
+L2_GROUP_MULTIPLIERS = (0.1, 1 / 3, 1.0, 3.0, 10.0)  # then each L2 strength on its own, over the same two decades
 L2_GROUPS = ("l2_words", "l2_compose", "l2_tensor", "l2_classifier")
 MV_L2_WORD_MATRICES = (0.0, 1e-5, 1e-4, 1e-3, 1e-2)
 BASE = {"dim": 32, "batch_size": 32, "lr": 0.02, **{g: L2_BASE for g in L2_GROUPS}}
-COST_KNOBS = ("dim", "batch_size")  # knobs that change the cost of a run: the cheaper value wins within noise
+COST_KNOBS = ("dim", "batch_size", "finalists")  # knobs that change the cost of a run: the cheaper value wins within noise
 # the settings these measurements replaced, for the reference row
 PREVIOUS_DEFAULTS = {"dim": 25, "batch_size": 27, "lr": 0.01, "l2_words": 1e-4, "l2_compose": 1e-3,
                      "l2_tensor": 1e-3, "l2_classifier": 1e-4}
 KNOB_LABELS = {"dim": "d", "batch_size": "batch", "lr": "lr", "l2_scale": "L2 scale", "l2_words": "l2_words",
                "l2_compose": "l2_compose", "l2_tensor": "l2_tensor", "l2_classifier": "l2_classifier",
-               "l2_word_matrices": "l2_word_matrices"}
+               "l2_word_matrices": "l2_word_matrices", "finalists": "setting"}
 
 
 def tidy(x: float) -> float:
@@ -172,11 +176,12 @@ class Sweep:
                  f"all {record['dev_fine_all']:.4f} (epoch {record['best_epoch']}, {record['seconds']:.1f} s)")
         return record
 
-    def measure(self, setting: dict, model: str = "rntn", treebanks: list[Treebank] | None = None) -> dict:
+    def measure(self, setting: dict, model: str = "rntn", treebanks: list[Treebank] | None = None,
+                seeds: list[int] | None = None) -> dict:
         """Mean over seeds per treebank: {name: {root, all, seconds, roots (per seed), best_epoch}}."""
         out = {}
         for bank in treebanks or self.treebanks:
-            runs = [self.run(bank, setting, seed, model) for seed in self.seeds]
+            runs = [self.run(bank, setting, seed, model) for seed in seeds or self.seeds]
             out[bank.name] = {"root": float(np.mean([r["dev_fine_root"] for r in runs])),
                               "all": float(np.mean([r["dev_fine_all"] for r in runs])),
                               "seconds": float(np.mean([r["seconds"] for r in runs])),
@@ -184,21 +189,21 @@ class Sweep:
                               "roots": [r["dev_fine_root"] for r in runs]}
         return out
 
-    def noise(self, bank_name: str, model: str = "rntn") -> float:
-        """Standard error of a difference of two seed-means on one treebank (pooled between-seed variance)."""
-        groups: dict[str, list[float]] = {}
-        for record in self.cache.values():
-            if record["treebank"] == bank_name and record["model"] == model and record["seed"] in self.seeds:
-                groups.setdefault(json.dumps(record["setting"], sort_keys=True), []).append(record["dev_fine_root"])
-        variances = [float(np.var(v, ddof=1)) for v in groups.values() if len(v) >= 2]
-        if not variances:
-            return 0.0
-        return math.sqrt(2 * float(np.mean(variances)) / len(self.seeds))
 
 
 # ---------------------------------------------------------------------------------------------
 # the rule
 # ---------------------------------------------------------------------------------------------
+
+
+def stage_noise(candidates: list[dict], treebank: str) -> float:
+    """Standard error of a difference of two seed-means on one treebank: sqrt(2 s^2 / seeds), s^2 the
+    between-seed variance of dev root accuracy pooled over the stage's candidates."""
+    per_seed = [c["scores"][treebank]["roots"] for c in candidates if len(c["scores"][treebank]["roots"]) >= 2]
+    if not per_seed:
+        return 0.0
+    pooled = float(np.mean([np.var(roots, ddof=1) for roots in per_seed]))
+    return math.sqrt(2 * pooled / len(per_seed[0]))
 
 
 def ranks(values: list[float]) -> list[int]:
@@ -209,14 +214,16 @@ def ranks(values: list[float]) -> list[int]:
 def choose(candidates: list[dict], treebanks: list[str], noise: dict[str, float], prefer_cheaper: bool) -> int:
     """Index of the candidate the rule picks (module docstring).
 
-    Each candidate: {"scores": {treebank: {"root": mean dev root, "seconds": mean seconds}}}.
+    Each candidate: {"scores": {treebank: {"root": mean dev root, "all": mean dev all-node accuracy,
+    "seconds": mean seconds}}}.
     """
     per_bank = {t: ranks([c["scores"][t]["root"] for c in candidates]) for t in treebanks}
     mean_rank = [float(np.mean([per_bank[t][i] for t in treebanks])) for i in range(len(candidates))]
     mean_root = [float(np.mean([c["scores"][t]["root"] for t in treebanks])) for c in candidates]
+    mean_all = [float(np.mean([c["scores"][t]["all"] for t in treebanks])) for c in candidates]
     for c, r in zip(candidates, mean_rank):
         c["mean_rank"] = r
-    best = min(range(len(candidates)), key=lambda i: (mean_rank[i], -mean_root[i], i))
+    best = min(range(len(candidates)), key=lambda i: (mean_rank[i], -mean_root[i], -mean_all[i], i))
     if not prefer_cheaper:
         return best
     cost = [sum(c["scores"][t]["seconds"] for t in treebanks) for c in candidates]
@@ -235,8 +242,9 @@ def describe(setting: dict) -> str:
     return " ".join(f"{KNOB_LABELS.get(k, k)}={setting[k]:g}" for k in setting)
 
 
-def stage_values(knob: str, point: dict) -> list[tuple[str, dict]]:
-    """(label, setting) for every value of the knob's grid, the other knobs at ``point``."""
+def stage_values(knob: str, point: dict, neighbours_only: bool = False) -> list[tuple[str, dict]]:
+    """(label, setting) for every value of the knob's grid, the other knobs at ``point``; with
+    ``neighbours_only``, the current value and its neighbours in the grid (for the re-check)."""
     if knob == "l2_scale":
         out = []
         for m in L2_SCALE_MULTIPLIERS:
@@ -245,6 +253,9 @@ def stage_values(knob: str, point: dict) -> list[tuple[str, dict]]:
     if knob in L2_GROUPS:
         return [(f"{tidy(point[knob] * m):g}", {**point, knob: tidy(point[knob] * m)}) for m in L2_GROUP_MULTIPLIERS]
     grid = {"dim": DIMS, "batch_size": BATCH_SIZES, "lr": LRS}[knob]
+    if neighbours_only and point[knob] in grid:
+        i = grid.index(point[knob])
+        grid = grid[max(0, i - 1) : i + 2]
     return [(f"{v:g}", {**point, knob: v}) for v in grid]
 
 
@@ -268,14 +279,16 @@ def markdown_table(title: str, knob: str, candidates: list[dict], treebanks: lis
 
 
 def run_stage(sweep: Sweep, knob: str, point: dict, title: str, model: str = "rntn",
-              treebanks: list[Treebank] | None = None, values: list[tuple[str, dict]] | None = None):
+              treebanks: list[Treebank] | None = None, values: list[tuple[str, dict]] | None = None,
+              seeds: list[int] | None = None):
     banks = treebanks or sweep.treebanks
     values = values if values is not None else stage_values(knob, point)
-    sweep.log(f"stage {title}: {len(values)} values x {len(banks)} treebanks x {len(sweep.seeds)} seeds")
-    candidates = [{"label": label, "setting": setting, "scores": sweep.measure(setting, model, banks)}
+    seeds = seeds or sweep.seeds
+    sweep.log(f"stage {title}: {len(values)} values x {len(banks)} treebanks x {len(seeds)} seeds")
+    candidates = [{"label": label, "setting": setting, "scores": sweep.measure(setting, model, banks, seeds)}
                   for label, setting in values]
     names = [b.name for b in banks]
-    noise = {t: sweep.noise(t, model) for t in names}
+    noise = {t: stage_noise(candidates, t) for t in names}
     chosen = choose(candidates, names, noise, prefer_cheaper=knob in COST_KNOBS)
     table = markdown_table(title, knob, candidates, names, chosen)
     noise_text = ", ".join(f"{t} {noise[t]:.4f}" for t in names)
@@ -284,12 +297,12 @@ def run_stage(sweep: Sweep, knob: str, point: dict, title: str, model: str = "rn
                                                                                f"seed-means, dev root): {noise_text}"}
 
 
-def test_scores(sweep: Sweep, setting: dict, model: str = "rntn") -> dict:
+def test_scores(sweep: Sweep, setting: dict, model: str = "rntn", seeds: list[int] | None = None) -> dict:
     """Mean test scores of the best checkpoints of the setting's runs (one per treebank and seed)."""
     out = {}
     for bank in sweep.treebanks:
         roots, alls = [], []
-        for seed in sweep.seeds:
+        for seed in seeds or sweep.seeds:
             record = sweep.run(bank, setting, seed, model)
             path = Path(record["run_dir"]) / checkpoint_name(record["best_step"])
             (row,) = evaluate_checkpoint(str(path), [bank.test])
@@ -315,15 +328,18 @@ def main(argv: list[str] | None = None) -> dict:
     parser = argparse.ArgumentParser(description="Choose default settings by a coordinate search on two treebanks.")
     parser.add_argument("--epochs", type=int, default=20, help="epochs per run (fixed; the best epoch's dev score "
                                                                "counts)")
-    parser.add_argument("--seeds", type=int, nargs="+", default=[0, 1])
+    parser.add_argument("--seeds", type=int, nargs="+", default=[0, 1], help="seeds of the search stages")
+    parser.add_argument("--final-seeds", type=int, nargs="+", default=[0, 1, 2, 3],
+                        help="seeds of the finalists, the test scores, the MV-RNN stage and the reference row")
     parser.add_argument("--demo-files", nargs=3, default=DEMO_FILES, metavar=("TRAIN", "DEV", "TEST"))
     parser.add_argument("--generated-sizes", type=int, nargs=3, default=(6000, 800, 800),
                         metavar=("TRAIN", "DEV", "TEST"), help="trees per split of the generated treebank")
     parser.add_argument("--generated-seed", type=int, default=2718)
     parser.add_argument("--work-dir", type=Path, default=Path(tempfile.gettempdir()) / "rntn-sweep-defaults",
                         help="generated treebank, run directories and the results cache")
-    parser.add_argument("--recheck", nargs="*", default=["lr"], choices=["dim", "batch_size", "lr"],
-                        help="knobs searched again at the final point")
+    parser.add_argument("--recheck", nargs="*", default=["dim", "batch_size", "lr"],
+                        choices=["dim", "batch_size", "lr"],
+                        help="knobs searched again at the final point, over the chosen value and its grid neighbours")
     parser.add_argument("--mvrnn-treebanks", nargs="*", default=["demo"], choices=["demo", "generated"])
     parser.add_argument("--no-reference", action="store_true", help="skip the previous-defaults reference row")
     parser.add_argument("--grid", action="append", default=[], metavar="KNOB=V1,V2,...",
@@ -369,24 +385,38 @@ def main(argv: list[str] | None = None) -> dict:
         point, stage = run_stage(sweep, knob, point, f"{len(stages) + 1}. {KNOB_LABELS[knob]}")
         stages.append(stage)
     for knob in args.recheck:
-        point, stage = run_stage(sweep, knob, point, f"{len(stages) + 1}. {KNOB_LABELS[knob]} again")
+        point, stage = run_stage(sweep, knob, point, f"{len(stages) + 1}. {KNOB_LABELS[knob]} again",
+                                 values=stage_values(knob, point, neighbours_only=True))
         stages.append(stage)
-    chosen = dict(point)
-    chosen_dev = sweep.measure(chosen)
-    chosen_test = test_scores(sweep, chosen)
+    # finalists: every setting the re-checks tried, now over --final-seeds (more seeds, less noise)
+    finalists: list[dict] = []
+    for stage in stages[len(stages) - len(args.recheck):] if args.recheck else stages[-1:]:
+        for c in stage["candidates"]:
+            if c["setting"] not in finalists:
+                finalists.append(c["setting"])
+    varied = [k for k in finalists[0] if len({f[k] for f in finalists}) > 1]
+    final_values = [(" ".join(f"{KNOB_LABELS[k]}={f[k]:g}" for k in varied) or "the point", f) for f in finalists]
+    chosen, final_stage = run_stage(sweep, "finalists", point, f"{len(stages) + 1}. finalists, "
+                                    f"{len(args.final_seeds)} seeds", values=final_values, seeds=args.final_seeds)
+    stages.append(final_stage)
+    chosen = dict(chosen)
+    chosen_dev = sweep.measure(chosen, seeds=args.final_seeds)
+    chosen_test = test_scores(sweep, chosen, seeds=args.final_seeds)
 
     mv_banks = [b for b in sweep.treebanks if b.name in args.mvrnn_treebanks]
     mv_values = [(f"{v:g}", {**chosen, "l2_word_matrices": v}) for v in MV_L2_WORD_MATRICES]
     mv_point, mv_stage = run_stage(sweep, "l2_word_matrices", chosen, "MV-RNN: l2_word_matrices", "mvrnn",
-                                   mv_banks, mv_values)
-    reference = None if args.no_reference else {"dev": sweep.measure(PREVIOUS_DEFAULTS),
-                                                "test": test_scores(sweep, PREVIOUS_DEFAULTS)}
+                                   mv_banks, mv_values, seeds=args.final_seeds)
+    reference = None if args.no_reference else {
+        "dev": sweep.measure(PREVIOUS_DEFAULTS, seeds=args.final_seeds),
+        "test": test_scores(sweep, PREVIOUS_DEFAULTS, seeds=args.final_seeds)}
 
     machine = {"date": datetime.date.today().isoformat(), "python": platform.python_version(),
                "numpy": np.__version__, "cpus": os.cpu_count(), "platform": platform.platform(),
                "processor": platform.processor() or platform.machine()}
     command = "python scripts/sweep_defaults.py " + " ".join(sys.argv[1:] if argv is None else argv)
     result = {"command": command.strip(), "machine": machine, "epochs": args.epochs, "seeds": args.seeds,
+              "final_seeds": args.final_seeds,
               "base": base, "stages": stages, "chosen": chosen, "chosen_dev": chosen_dev, "chosen_test": chosen_test,
               "mvrnn": {"stage": mv_stage, "l2_word_matrices": mv_point["l2_word_matrices"]},
               "previous_defaults": PREVIOUS_DEFAULTS, "reference": reference,
@@ -408,14 +438,16 @@ def markdown_report(result: dict, treebanks: list[str]) -> str:
     m = result["machine"]
     lines = [f"# defaults sweep: `{result['command']}`", "",
              f"{m['date']}; {m['cpus']} cpus ({m['processor']}), {m['platform']}, Python {m['python']}, "
-             f"NumPy {m['numpy']}; {result['epochs']} epochs per run, seeds {result['seeds']}, "
+             f"NumPy {m['numpy']}; {result['epochs']} epochs per run, seeds {result['seeds']} "
+             f"(finalists, test, MV-RNN and reference: {result['final_seeds']}), "
              f"{result['trainings']} trainings in the cache ({result['trained_now']} trained in this call, "
              f"{result['sweep_seconds']:.0f} s)", "",
              f"base point: {describe(result['base'])}", ""]
     for stage in result["stages"]:
         lines += [stage["markdown"], ""]
     lines += [f"chosen: {describe(result['chosen'])}", ""]
-    head, rule = "| setting | treebank | dev root | dev all | test root | test all |", "|---|---|---|---|---|---|"
+    head = "| setting | treebank | dev root | dev all | test root | test all | s per run |"
+    rule = "|---|---|---|---|---|---|---|"
     lines += [head, rule]
     rows = [("chosen", result["chosen_dev"], result["chosen_test"])]
     if result["reference"]:
@@ -423,7 +455,7 @@ def markdown_report(result: dict, treebanks: list[str]) -> str:
     for name, dev, test in rows:
         for t in treebanks:
             lines.append(f"| {name} | {t} | {dev[t]['root']:.4f} | {dev[t]['all']:.4f} | {test[t]['root']:.4f} | "
-                         f"{test[t]['all']:.4f} |")
+                         f"{test[t]['all']:.4f} | {dev[t]['seconds']:.1f} |")
     lines += ["", result["mvrnn"]["stage"]["markdown"], "",
               f"chosen l2_word_matrices: {result['mvrnn']['l2_word_matrices']:g}"]
     return "\n".join(lines)

@@ -89,7 +89,7 @@ def sweep():
 
 
 def candidate(roots: dict, seconds: dict) -> dict:
-    return {"scores": {t: {"root": roots[t], "seconds": seconds[t]} for t in roots}}
+    return {"scores": {t: {"root": roots[t], "all": 0.9, "seconds": seconds[t]} for t in roots}}
 
 
 def test_rule_takes_the_best_mean_rank(sweep):
@@ -109,16 +109,35 @@ def test_rule_prefers_a_cheaper_value_only_within_noise(sweep):
     assert sweep.choose(cands, ["a", "b"], {"a": 0.02, "b": 0.005}, prefer_cheaper=True) == 0  # outside on b
 
 
+def test_ties_in_rank_and_root_go_to_the_higher_all_node_accuracy(sweep):
+    cands = [candidate({"a": 0.70}, {"a": 1}), candidate({"a": 0.70}, {"a": 1})]
+    cands[1]["scores"]["a"]["all"] = 0.95
+    assert sweep.choose(cands, ["a"], {"a": 0.0}, prefer_cheaper=False) == 1
+
+
+def test_noise_is_the_standard_error_of_a_difference_of_seed_means(sweep):
+    # two candidates, two seeds: variances 0.0002 and 0, pooled 0.0001; sqrt(2 * 0.0001 / 2) = 0.01
+    cands = [{"scores": {"a": {"roots": [0.80, 0.82]}}}, {"scores": {"a": {"roots": [0.70, 0.70]}}}]
+    assert abs(sweep.stage_noise(cands, "a") - 0.01) < 1e-12
+
+
+def test_recheck_takes_the_current_value_and_its_grid_neighbours(sweep):
+    point = {**sweep.BASE, "dim": sweep.DIMS[0], "lr": sweep.LRS[2]}
+    assert [s["dim"] for _, s in sweep.stage_values("dim", point, neighbours_only=True)] == list(sweep.DIMS[:2])
+    assert [s["lr"] for _, s in sweep.stage_values("lr", point, neighbours_only=True)] == list(sweep.LRS[1:4])
+
+
 def test_sweep_runs_tiny_end_to_end(sweep, tmp_path, capsys):
     train, dev = write_demo_slices(tmp_path, 40, 20)
-    result = sweep.main(["--epochs", "1", "--seeds", "0", "1", "--demo-files", str(train), str(dev), str(dev),
+    result = sweep.main(["--epochs", "1", "--seeds", "0", "1", "--final-seeds", "0", "1", "2", "--demo-files", str(train), str(dev), str(dev),
                          "--generated-sizes", "40", "20", "20", "--work-dir", str(tmp_path / "work"),
                          "--grid", "dim=3,4", "--grid", "batch_size=8,16", "--grid", "lr=0.02,0.05",
                          "--grid", "l2_scale=1,10", "--grid", "l2_group=1,3", "--grid", "mv=0,0.001",
                          "--out", str(tmp_path / "report.md"), "--json"])
     capsys.readouterr()
     assert [s["knob"] for s in result["stages"]] == ["dim", "batch_size", "lr", "l2_scale", "l2_words",
-                                                     "l2_compose", "l2_tensor", "l2_classifier", "lr"]
+                                                     "l2_compose", "l2_tensor", "l2_classifier", "dim",
+                                                     "batch_size", "lr", "finalists"]
     chosen = result["chosen"]
     assert chosen["dim"] in (3, 4) and chosen["batch_size"] in (8, 16) and chosen["lr"] in (0.02, 0.05)
     assert result["mvrnn"]["l2_word_matrices"] in (0.0, 0.001)
@@ -128,8 +147,11 @@ def test_sweep_runs_tiny_end_to_end(sweep, tmp_path, capsys):
     report = (tmp_path / "report.md").read_text()
     assert "| d | demo dev root |" in report and "previous defaults" in report
     # a second call trains nothing: every run comes from the results cache
-    again = sweep.main(["--epochs", "1", "--seeds", "0", "1", "--demo-files", str(train), str(dev), str(dev),
+    again = sweep.main(["--epochs", "1", "--seeds", "0", "1", "--final-seeds", "0", "1", "2", "--demo-files", str(train), str(dev), str(dev),
                         "--generated-sizes", "40", "20", "20", "--work-dir", str(tmp_path / "work"),
                         "--grid", "dim=3,4", "--grid", "batch_size=8,16", "--grid", "lr=0.02,0.05",
                         "--grid", "l2_scale=1,10", "--grid", "l2_group=1,3", "--grid", "mv=0,0.001", "--json"])
     assert again["trained_now"] == 0 and again["chosen"] == chosen
+    finalists = [c["setting"] for c in result["stages"][-1]["candidates"]]
+    assert chosen in finalists and len(finalists) >= 2
+    assert all(len(c["scores"]["demo"]["roots"]) == 3 for c in result["stages"][-1]["candidates"])
