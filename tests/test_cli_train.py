@@ -8,6 +8,7 @@ import pytest
 from demo_slices import write_demo_slices
 from rntn_engine.cli.app import main
 from rntn_engine.run.checkpoints import load_checkpoint
+from rntn_engine.run.run_config import TrainConfig
 
 DEMO = Path(__file__).resolve().parents[1] / "data_demo"
 
@@ -29,7 +30,7 @@ def test_train_writes_model_config_and_metrics(small_treebanks, tmp_path, capsys
     ckpt = load_checkpoint(run_dir / "model.h5")
     assert ckpt.config.dim == 6 and ckpt.config.model == "rntn"
     assert ckpt.params.V.shape == (6, 12, 12)
-    assert ckpt.state["step"] == 2 * -(-150 // 27)
+    assert ckpt.state["step"] == 2 * -(-150 // TrainConfig().batch_size)  # 2 epochs of minibatches
 
 
 def test_same_settings_give_bit_identical_models_whatever_the_threads(small_treebanks, tmp_path):
