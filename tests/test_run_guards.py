@@ -12,6 +12,7 @@ import pytest
 from demo_slices import write_demo_slices
 from rntn_engine.cli.app import main
 from rntn_engine.run.checkpoints import load_checkpoint
+from rntn_engine.run.run_config import TrainConfig
 from rntn_engine.run.run_directory import list_checkpoints, lock_is_held
 
 
@@ -72,7 +73,9 @@ def test_edited_configuration_is_refused_with_the_differing_keys(treebanks, tmp_
     run_dir = tmp_path / "run"
     assert main(train_args(treebanks, run_dir, epochs=1)) == 0
     config = (run_dir / "config.toml").read_text()
-    (run_dir / "config.toml").write_text(config.replace("dim = 4", "dim = 8").replace("lr = 0.01", "lr = 0.5"))
+    default_lr = f"lr = {TrainConfig().lr!r}"
+    assert "dim = 4" in config and default_lr in config
+    (run_dir / "config.toml").write_text(config.replace("dim = 4", "dim = 8").replace(default_lr, "lr = 0.5"))
     assert main(["resume", str(run_dir), "--epochs", "2", "--no-progress"]) == 1
     err = capsys.readouterr().err
     assert "differs from the checkpoint in lr, dim" in err or "differs from the checkpoint in dim, lr" in err

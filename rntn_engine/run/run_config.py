@@ -41,6 +41,9 @@ FINAL_MODELS = ("best", "last")  # what model.h5 holds when a run ends
 # what the L2 term on word vectors pulls toward: zero, or each vector's value at the start of the run
 L2_WORDS_TOWARD = ("zero", "start")
 VECTOR_FORMATS = ("auto", "glove", "word2vec-text", "word2vec-binary")
+# d when neither --dim nor a --vectors file gives it. This and the defaults of batch_size, lr and the L2
+# strengths below were chosen by scripts/sweep_defaults.py (README "How the defaults were chosen").
+DIM_WITHOUT_VECTORS = 16
 
 
 class ConfigError(ValueError):
@@ -79,23 +82,23 @@ class TrainConfig:
     model: str = setting("rntn", "Model: rnn (matrix composition), rntn (tensor + matrix) or mvrnn (a matrix per "
                          "word and phrase).", "shape", choices=MODELS)
     dim: int = setting(0, "Size d of word and phrase vectors.", "shape", minimum=0,
-                       shown_default="the --vectors file's, else 25")
+                       shown_default=f"the --vectors file's, else {DIM_WITHOUT_VECTORS}")
     num_classes: int = setting(5, "Number of classes C; labels are 0..C-1.", "shape", minimum=2)
     class_names: str = setting("", "Names of the classes 0..C-1 for tables and figures, separated by commas "
                                "(\"\" = the class numbers).", "run", resume=True)
     epochs: int = setting(20, "Passes over the training trees.", "run", minimum=0, resume=True)
-    batch_size: int = setting(27, "Trees per minibatch.", "result", minimum=1)
-    lr: float = setting(0.01, "AdaGrad learning rate.", "result", above=0.0)
+    batch_size: int = setting(16, "Trees per minibatch.", "result", minimum=1)
+    lr: float = setting(0.02, "AdaGrad learning rate.", "result", above=0.0)
     adagrad_eps: float = setting(1e-6, "AdaGrad epsilon in lr * g / (sqrt(G) + eps).", "result", above=0.0)
-    l2_words: float = setting(1e-4, "L2 strength on word vectors (rows of the minibatch's words).", "result",
+    l2_words: float = setting(1e-5, "L2 strength on word vectors (rows of the minibatch's words).", "result",
                               minimum=0.0)
     l2_words_toward: str = setting("zero", "What L2 on word vectors pulls toward: zero, or start (each vector's "
                                    "starting value, e.g. its pretrained one).", "result", choices=L2_WORDS_TOWARD)
-    l2_compose: float = setting(1e-3, "L2 strength on the composition matrix W (and WM of the mvrnn).", "result",
+    l2_compose: float = setting(1e-4, "L2 strength on the composition matrix W (and WM of the mvrnn).", "result",
                                 minimum=0.0)
-    l2_tensor: float = setting(1e-3, "L2 strength on the composition tensor V.", "result", minimum=0.0)
+    l2_tensor: float = setting(1e-4, "L2 strength on the composition tensor V.", "result", minimum=0.0)
     l2_classifier: float = setting(1e-4, "L2 strength on the classifier weights.", "result", minimum=0.0)
-    l2_word_matrices: float = setting(1e-4, "L2 strength on the word matrices (mvrnn).", "result", minimum=0.0)
+    l2_word_matrices: float = setting(1e-3, "L2 strength on the word matrices (mvrnn).", "result", minimum=0.0)
     max_memory_gb: float = setting(8.0, "Refuse a model whose parameters, AdaGrad sums and gradient need more GiB "
                                    "(0: no limit).", "run", minimum=0.0, resume=True)
     min_count: int = setting(2, "Training count a word needs for a vector of its own; rarer words share the "
