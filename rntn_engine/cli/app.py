@@ -23,6 +23,7 @@ except ImportError:  # pragma: no cover
 from rntn_engine import __version__
 from rntn_engine.cli.app_exit import EXIT_BAD_INPUT, EXIT_INTERRUPTED, EXIT_OK, EXIT_USAGE
 from rntn_engine.data.errors import InputError
+from rntn_engine.run.process_group import PeerStopped, ProcessGroupError
 from rntn_engine.run.run_config import ConfigError
 from rntn_engine.run.run_errors import RunDirectoryError, TrainingError
 
@@ -99,6 +100,11 @@ def main(argv: list[str] | None = None) -> int:
         where = f"rntn {ctx.info_name}" if ctx is not None and ctx.parent is not None else "rntn"
         typer.echo(f"rntn: error: {exc.format_message()} (see '{where} --help')", err=True)
         return EXIT_USAGE
+    except PeerStopped as exc:  # another rank of an MPI job (rank 0) reports the error
+        return exc.code
+    except ProcessGroupError as exc:
+        typer.echo(f"rntn: error: {exc}", err=True)
+        return EXIT_BAD_INPUT
     except ConfigError as exc:
         typer.echo(f"rntn: error: {exc}", err=True)
         return EXIT_USAGE

@@ -11,11 +11,12 @@ from typing import Annotated, Any, Optional
 import typer
 
 from rntn_engine.cli.config_options import command_with_settings, keyword
-from rntn_engine.cli.shared_options import ProgressOption
+from rntn_engine.cli.shared_options import MpiOption, ProgressOption
 from rntn_engine.run.run_config import RESUME_CHANGEABLE
 
 
-def _resume(given: dict[str, Any], run_dir: Path, allow_changed_data: bool, progress: Optional[bool]) -> None:
+def _resume(given: dict[str, Any], run_dir: Path, allow_changed_data: bool, progress: Optional[bool],
+            mpi: bool) -> None:
     """Continue a run from its newest valid checkpoint, bit-identically to an uninterrupted run.
 
     Uses the configuration stored with the run; only the options below may change (none of them
@@ -23,10 +24,11 @@ def _resume(given: dict[str, Any], run_dir: Path, allow_changed_data: bool, prog
     previous good one used; a run killed before its first checkpoint starts from the beginning;
     a finished run is left as it is. Exit code 75 again means stopped cleanly and resumable.
     """
+    from rntn_engine.run.process_group import process_group
     from rntn_engine.run.trainer import resume_training
 
     code = resume_training(run_dir, given, echo=typer.echo, show_progress=progress,
-                           allow_changed_data=allow_changed_data)
+                           allow_changed_data=allow_changed_data, group=process_group(mpi))
     if code:
         raise typer.Exit(code)
 
@@ -40,6 +42,7 @@ resume = command_with_settings(
             "--allow-changed-data", help="Continue even though a data file's content changed since the checkpoint.")],
             False),
         keyword("progress", ProgressOption, None),
+        keyword("mpi", MpiOption, False),
     ],
     default_label="the run's",
 )

@@ -23,3 +23,9 @@ JobsOption = Annotated[
     Optional[int],
     typer.Option("--jobs", "-j", min=1, show_default=False, help="Worker processes. [default: all cores]"),
 ]
+MpiOption = Annotated[
+    bool,
+    typer.Option("--mpi", help="Run as one of the ranks of an MPI job (start it with mpiexec -n N or a "
+                               "scheduler's launcher): work is shared among the ranks, rank 0 writes and "
+                               "prints, and the results are bitwise those of one process. Needs the [mpi] extra."),
+]

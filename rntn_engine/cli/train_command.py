@@ -12,17 +12,19 @@ from typing import Annotated, Any, Optional
 import typer
 
 from rntn_engine.cli.config_options import command_with_settings, keyword
-from rntn_engine.cli.shared_options import ProgressOption
+from rntn_engine.cli.shared_options import MpiOption, ProgressOption
 from rntn_engine.run.run_config import TrainConfig, config_from_mapping, load_config_file
 
 
-def _train(given: dict[str, Any], config_file: Optional[Path], print_config: bool, progress: Optional[bool]) -> None:
+def _train(given: dict[str, Any], config_file: Optional[Path], print_config: bool, progress: Optional[bool],
+           mpi: bool) -> None:
     """Train an RNN, RNTN or MV-RNN on a phrase-labelled treebank in a new run directory.
 
     Prints per-epoch loss and dev accuracy; checkpoints by time, steps and epoch. SIGTERM,
     SIGHUP, SIGINT or --time-limit stop it at the next minibatch with a checkpoint and exit
     code 75; `rntn resume RUN_DIR` continues exactly where it stopped.
     """
+    from rntn_engine.run.process_group import process_group
     from rntn_engine.run.trainer import start_training
 
     config = TrainConfig()
@@ -34,7 +36,7 @@ def _train(given: dict[str, Any], config_file: Optional[Path], print_config: boo
         typer.echo(config.to_toml(), nl=False)
         return
     config.validate()
-    code = start_training(config, echo=typer.echo, show_progress=progress)
+    code = start_training(config, echo=typer.echo, show_progress=progress, group=process_group(mpi))
     if code:
         raise typer.Exit(code)
 
@@ -50,5 +52,6 @@ train = command_with_settings(
         keyword("print_config", Annotated[bool, typer.Option(
             "--print-config", help="Print the resolved configuration as TOML and exit.")], False),
         keyword("progress", ProgressOption, None),
+        keyword("mpi", MpiOption, False),
     ],
 )

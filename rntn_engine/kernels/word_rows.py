@@ -12,9 +12,10 @@ the minibatch receive anything, so the gradient is kept as those rows only:
     values (n, w) values[j] = dL[rows[j]]
     slot   per leaf, the j with rows[j] = word of the leaf
 
-and ``scatter_word_rows`` adds each leaf's error to ``values[slot]``, leaves in chunk
-order, chunks in chunk order: the same additions in the same order as a dense dL,
-so the touched rows hold the same bits a dense gradient would.
+and ``scatter_word_rows`` adds each leaf's error to ``values[slot]``, in leaf order. Each
+chunk of a minibatch first sums its own leaves into rows of its own (its distinct words);
+``add_word_rows`` then adds the chunks' rows into the minibatch's rows in chunk order, so
+the result never depends on which thread, or which MPI rank, computed a chunk.
 """
 
 from __future__ import annotations
@@ -36,6 +37,16 @@ def scatter_word_rows(values, E, slot, leaves):
         i = leaves[k]
         for c in range(width):
             values[j, c] += E[i, c]
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+def add_word_rows(values, at, part):
+    """values (n, w) += part (m, w) at rows at (m,) int64 of ``values`` (a chunk's rows into the minibatch's)."""
+    width = part.shape[1]
+    for j in range(part.shape[0]):
+        r = at[j]
+        for c in range(width):
+            values[r, c] += part[j, c]
 
 
 def touched_rows(leaf_words: list[np.ndarray]) -> np.ndarray:

@@ -59,8 +59,8 @@ from rntn_engine.kernels.tree_compose import (
     forward_compose,
     symmetric_tensor_layout,
 )
-from rntn_engine.kernels.word_rows import scatter_word_rows, touched_rows
-from rntn_engine.model.parameters import L2_GROUP, WORD_ROW_NAMES, Gradient, Parameters
+from rntn_engine.kernels.word_rows import add_word_rows, scatter_word_rows, touched_rows
+from rntn_engine.model.parameters import L2_GROUP, WORD_ROW_NAMES, Gradient, Parameters, WordRows
 
 
 @dataclass(frozen=True)
@@ -110,6 +110,55 @@ class _Workspace:
         return buf[:rows]
 
 
+class ChunkGradient:
+    """One chunk's share of a minibatch's loss and gradient, summed inside the chunk: what a worker thread
+    hands to the reduction, and what MPI ranks exchange (:meth:`pack`, :meth:`unpack`).
+
+    flat    the chunk's dense gradients (W, b, WM, Ws, bs, as it has them), then the tensor's layout
+            gradient (RNTN), in one buffer with named views
+    rows    the word arrays' gradient at the chunk's distinct words (L, and LM of the MV-RNN)
+    loss    the chunk's share of the data term
+    """
+
+    def __init__(self, params: Parameters, dense_names: list[str], tensor_shape: tuple[int, ...]) -> None:
+        dtype = params.flat.dtype
+        sizes = {name: params[name].size for name in dense_names}
+        tensor_size = int(np.prod(tensor_shape))
+        self.flat = np.zeros(sum(sizes.values()) + tensor_size, dtype=dtype)
+        self.views: dict[str, np.ndarray] = {}
+        offset = 0
+        for name in dense_names:
+            self.views[name] = self.flat[offset : offset + sizes[name]].reshape(params[name].shape)
+            offset += sizes[name]
+        self.tensor = self.flat[offset:].reshape(tensor_shape)  # (0, 0) when the model has no tensor
+        self.rows = {name: WordRows(int(np.prod(params[name].shape[1:])), dtype)
+                     for name in params.names() if name in WORD_ROW_NAMES}
+        self.loss = 0.0
+
+    def pack(self) -> bytes:
+        """Everything the reduction reads, as bytes (the word arrays share their rows: one leaf, one word)."""
+        rows = next(iter(self.rows.values())).rows
+        parts = [np.array([self.loss], dtype=np.float64).tobytes(), np.array([rows.size], dtype=np.int64).tobytes(),
+                 self.flat.tobytes(), rows.astype(np.int64).tobytes()]
+        parts += [np.ascontiguousarray(r.values).tobytes() for r in self.rows.values()]
+        return b"".join(parts)
+
+    def unpack(self, data: bytes) -> None:
+        """The inverse of :meth:`pack` (the same model and dtype on both sides)."""
+        view = memoryview(data)
+        self.loss = float(np.frombuffer(view[:8], dtype=np.float64)[0])
+        n = int(np.frombuffer(view[8:16], dtype=np.int64)[0])
+        at = 16 + self.flat.nbytes
+        self.flat[:] = np.frombuffer(view[16:at], dtype=self.flat.dtype)
+        rows = np.frombuffer(view[at : at + 8 * n], dtype=np.int64).copy()
+        at += 8 * n
+        for word_rows in self.rows.values():
+            word_rows.reset(rows)
+            size = n * word_rows.width * self.flat.itemsize
+            word_rows.values[:] = np.frombuffer(view[at : at + size], dtype=self.flat.dtype).reshape(n, -1)
+            at += size
+
+
 class TreeModelObjective:
     """Loss, gradient and class probabilities of the RNN / RNTN / MV-RNN over flattened batches."""
 
@@ -126,14 +175,13 @@ class TreeModelObjective:
         self._workspaces: list[_Workspace] = []
         # per chunk: name -> its own gradient sum of each small dense array (see module docstring)
         self._chunk_names = [name for name in params.names() if name not in _NOT_PER_CHUNK]
-        self._chunk_grads: list[dict[str, np.ndarray]] = []
+        self._chunk_grads: list[ChunkGradient] = []
         self._pool = ThreadPoolExecutor(self.threads) if self.threads > 1 else None
         # Parallelism comes from chunks on our own threads; BLAS inside them runs single-threaded
         # (nested BLAS threads on top of ours ran many times slower when measured).
         self._blas_limit = threadpool_limits(limits=1, user_api="blas")
         d = self.shape.dim
         self._Vsym = np.zeros((2 * d, d * 2 * d) if self.use_tensor else (0, 0), dtype=self._dtype)
-        self._dVsym: list[np.ndarray] = []
 
     def close(self) -> None:
         if self._blas_limit is not None:
@@ -203,50 +251,68 @@ class TreeModelObjective:
     # --- public --------------------------------------------------------------------------------------
 
     def loss_and_gradient(self, params: Parameters, grads: Gradient, chunks: list[FlatBatch],
-                          include_l2: bool = True) -> float:
+                          include_l2: bool = True, group=None) -> float:
         """J of the minibatch made of ``chunks``; writes dJ/dtheta into ``grads`` (zeroed here first).
 
         ``include_l2=False`` leaves the L2 term out of both (the training loop adds it inside the
         optimiser's single pass, AdaGrad.step_with_l2). The word rows of ``grads`` are set to the
-        minibatch's touched rows.
+        minibatch's touched rows. ``group`` (run/process_group.py), when it has several ranks: rank
+        r computes chunks r, r + N, r + 2N, ... and the ranks exchange their chunk gradients, so every
+        rank reduces every chunk in chunk order and gets the same bits as one process.
         """
         n_trees = sum(c.n_trees for c in chunks)
         scale = 1.0 / n_trees
         if self.use_tensor:
             symmetric_tensor_layout(self._Vsym, params.V)
         while len(self._chunk_grads) < len(chunks):
-            self._chunk_grads.append({name: np.zeros_like(params[name]) for name in self._chunk_names})
-            self._dVsym.append(np.zeros_like(self._Vsym))
+            self._chunk_grads.append(ChunkGradient(params, self._chunk_names, self._Vsym.shape))
+        ranks, rank = (group.size, group.rank) if group is not None else (1, 0)
+        mine = [k for k in range(len(chunks)) if k % ranks == rank]
 
-        def run(k: int) -> float:
-            own = self._chunk_grads[k]
-            for g in own.values():  # this chunk's own sums start from zero (dVsym is overwritten)
-                g[...] = 0
-            return self._gradient_chunk(params, own, self._dVsym[k], chunks[k], self._slot(k), scale)
+        def run(k: int) -> None:
+            own, batch = self._chunk_grads[k], chunks[k]
+            own.flat[:] = 0  # this chunk's own sums start from zero
+            ws = self._slot(k)
+            own.loss = self._gradient_chunk(params, own.views, own.tensor, batch, ws, scale)
+            leaf_words = batch.word[batch.leaves]
+            rows = touched_rows([leaf_words])
+            slot = np.searchsorted(rows, leaf_words)  # each leaf's row among the chunk's rows
+            for name, word_rows in own.rows.items():
+                word_rows.reset(rows)
+                errors = ws.buffers["E"] if name == "L" else ws.buffers["EM"]  # dLM[w] += EM[leaf], d*d numbers
+                scatter_word_rows(word_rows.values, errors.reshape(errors.shape[0], -1), slot, batch.leaves)
 
-        if self._pool is not None and len(chunks) > 1:
-            losses = list(self._pool.map(run, range(len(chunks))))
+        if self._pool is not None and len(mine) > 1:
+            list(self._pool.map(run, mine))
         else:
-            losses = [run(k) for k in range(len(chunks))]
+            for k in mine:
+                run(k)
+        if ranks > 1:  # every rank gets every chunk's share
+            packed = b"".join(np.array([k, len(blob)], dtype=np.int64).tobytes() + blob
+                              for k in mine for blob in [self._chunk_grads[k].pack()])
+            for data in group.allgather_bytes(packed):
+                view, at = memoryview(data), 0
+                while at < len(view):
+                    k, size = (int(x) for x in np.frombuffer(view[at : at + 16], dtype=np.int64))
+                    if k not in mine:
+                        self._chunk_grads[k].unpack(view[at + 16 : at + 16 + size])
+                    at += 16 + size
 
-        # reduce in chunk order: bitwise independent of the thread count
+        # reduce in chunk order: bitwise independent of the thread count and of the number of ranks
         grads.zero_()
-        rows = touched_rows([c.word[c.leaves] for c in chunks])
+        rows = touched_rows([self._chunk_grads[k].rows["L"].rows for k in range(len(chunks))])
         for word_rows in grads.rows.values():
             word_rows.reset(rows)
         loss = 0.0
-        for k, batch in enumerate(chunks):
-            loss += losses[k]
-            for name, g in self._chunk_grads[k].items():
+        for k in range(len(chunks)):
+            own = self._chunk_grads[k]
+            loss += own.loss
+            for name, g in own.views.items():
                 grads[name] += g
             if self.use_tensor:
-                add_symmetric_layout_gradient(grads.V, self._dVsym[k])
-            ws = self._slot(k)
-            slot = np.searchsorted(rows, batch.word[batch.leaves])  # each leaf's row among the touched rows
-            scatter_word_rows(grads.rows["L"].values, ws.buffers["E"], slot, batch.leaves)
-            if self.use_matrices:  # dLM[w] += EM[leaf], a word matrix as one row of d*d numbers
-                scatter_word_rows(grads.rows["LM"].values, ws.buffers["EM"].reshape(-1, grads.rows["LM"].width),
-                                  slot, batch.leaves)
+                add_symmetric_layout_gradient(grads.V, own.tensor)
+            for name, word_rows in own.rows.items():
+                add_word_rows(grads.rows[name].values, np.searchsorted(rows, word_rows.rows), word_rows.values)
         return loss + self.add_l2(params, grads, rows) if include_l2 else loss
 
     def add_l2(self, params: Parameters, grads: Gradient | None, rows: np.ndarray) -> float:

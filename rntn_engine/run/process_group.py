@@ -2,11 +2,15 @@
 
 A command runs under MPI only when asked to (``--mpi``; never guessed from the
 environment). Every rank then holds the whole model and takes every step; rank 0 alone
-writes files and prints. What the ranks exchange, always from all ranks to all ranks:
+writes files and prints. What the ranks exchange, always from all ranks to all ranks,
+through MPI's buffer interface (raw bytes and numbers: nothing is pickled):
 
-    allgather_bytes   each rank's bytes, in rank order (chunk results of a step, scores)
-    any_true          one combined flag (stop now?), so every rank leaves the loop at the same step
-    same_on_all       one value every rank must agree on (the data files' hashes); names a rank that differs
+    allgather_bytes   each rank's bytes, in rank order (the chunk gradients of a step, scores)
+    largest           the largest of the ranks' numbers: one combined status per step (go on,
+                      stop, or rank 0 failed to write), so every rank leaves the loop together
+    broadcast_text    rank 0's text (a JSON value) to every rank
+    same_on_all       one value every rank must agree on (the data files' hashes); names a rank
+                      that differs
 
 Exchanging in rank order and combining in a fixed order (chunk order) keeps every rank's
 arithmetic the same as one process's. If a rank dies, the MPI launcher ends the job;
@@ -16,12 +20,24 @@ checkpoints are only ever replaced atomically, so the newest one survives and a 
 
 from __future__ import annotations
 
-import os
-from typing import Any
+import json
+from typing import Any, Callable, TypeVar
+
+import numpy as np
+
+T = TypeVar("T")
 
 
 class ProcessGroupError(RuntimeError):
     """The group cannot run (MPI asked for but not installed, or the ranks disagree); one line."""
+
+
+class PeerStopped(RuntimeError):
+    """Raised on the other ranks when rank 0 met an error it reports itself: exit with ``code``, print nothing."""
+
+    def __init__(self, code: int = 1) -> None:
+        super().__init__(f"rank 0 stopped the job (exit code {code})")
+        self.code = code
 
 
 class SingleProcess:
@@ -36,23 +52,44 @@ class SingleProcess:
         return self.rank == 0
 
     def allgather_bytes(self, data: bytes) -> list[bytes]:
-        return [data]
+        return [bytes(data)]
+
+    def largest(self, value: int) -> int:
+        return int(value)
 
     def any_true(self, flag: bool) -> bool:
-        return bool(flag)
+        return self.largest(1 if flag else 0) > 0
+
+    def broadcast_text(self, text: str | None) -> str:
+        return text or ""
 
     def same_on_all(self, value: Any, what: str) -> None:
-        return None
+        texts = [t.decode("utf-8") for t in self.allgather_bytes(json.dumps(value, sort_keys=True).encode("utf-8"))]
+        for rank, text in enumerate(texts):
+            if text != texts[0]:
+                if not self.is_root:
+                    raise PeerStopped(1)  # rank 0 says it, once
+                raise ProcessGroupError(f"rank {rank} sees a different {what} than rank 0 ({json.loads(text)} "
+                                        f"against {json.loads(texts[0])}): every rank needs the same files")
 
-    def broadcast(self, value: Any) -> Any:
-        return value
-
-    def abort(self, code: int) -> None:
-        os._exit(code)
+    def root_now(self, action: Callable[[], T]) -> T | None:
+        """Run ``action`` on rank 0 only, now; if it fails, every rank raises (rank 0 its own error)."""
+        error: BaseException | None = None
+        result = None
+        if self.is_root:
+            try:
+                result = action()
+            except Exception as exc:  # re-raised below, on every rank
+                error = exc
+        if self.any_true(error is not None):
+            if error is not None:
+                raise error
+            raise PeerStopped(1)
+        return result
 
 
 class MpiRanks(SingleProcess):
-    """The ranks of MPI_COMM_WORLD (mpi4py)."""
+    """The ranks of MPI_COMM_WORLD (mpi4py, buffer interface only)."""
 
     is_mpi = True
 
@@ -69,20 +106,27 @@ class MpiRanks(SingleProcess):
         self.size = self._comm.Get_size()
 
     def allgather_bytes(self, data: bytes) -> list[bytes]:
-        return self._comm.allgather(bytes(data))
+        mine = np.frombuffer(bytes(data), dtype=np.uint8)
+        sizes = np.zeros(self.size, dtype=np.int64)
+        self._comm.Allgather(np.array([mine.size], dtype=np.int64), sizes)
+        everything = np.empty(int(sizes.sum()), dtype=np.uint8)
+        self._comm.Allgatherv(mine, [everything, sizes, np.concatenate([[0], np.cumsum(sizes)[:-1]]),
+                                     self._mpi.BYTE])
+        starts = np.concatenate([[0], np.cumsum(sizes)])
+        return [everything[starts[r] : starts[r + 1]].tobytes() for r in range(self.size)]
 
-    def any_true(self, flag: bool) -> bool:
-        return bool(self._comm.allreduce(1 if flag else 0, op=self._mpi.MAX))
+    def largest(self, value: int) -> int:
+        out = np.zeros(1, dtype=np.int64)
+        self._comm.Allreduce(np.array([int(value)], dtype=np.int64), out, op=self._mpi.MAX)
+        return int(out[0])
 
-    def same_on_all(self, value: Any, what: str) -> None:
-        values = self._comm.allgather(value)
-        for rank, other in enumerate(values):
-            if other != values[0]:
-                raise ProcessGroupError(f"rank {rank} sees a different {what} than rank 0 "
-                                        f"({other!r} against {values[0]!r}): every rank needs the same files")
-
-    def broadcast(self, value: Any) -> Any:
-        return self._comm.bcast(value, root=0)
+    def broadcast_text(self, text: str | None) -> str:
+        data = np.frombuffer((text or "").encode("utf-8"), dtype=np.uint8) if self.is_root else None
+        size = np.array([data.size if data is not None else 0], dtype=np.int64)
+        self._comm.Bcast(size, root=0)
+        buffer = data.copy() if data is not None else np.empty(int(size[0]), dtype=np.uint8)
+        self._comm.Bcast(buffer, root=0)
+        return buffer.tobytes().decode("utf-8")
 
     def abort(self, code: int) -> None:
         self._comm.Abort(code)

@@ -23,6 +23,7 @@ from __future__ import annotations
 import hashlib
 import os
 import time
+from contextlib import nullcontext
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
@@ -45,7 +46,7 @@ from rntn_engine.model.parameters import (
     check_memory,
     init_parameters,
 )
-from rntn_engine.run.checkpoints import Checkpoint, newest_valid_checkpoint, save_checkpoint
+from rntn_engine.run.checkpoints import Checkpoint, load_checkpoint, newest_valid_checkpoint, save_checkpoint
 from rntn_engine.run.evaluation import TreebankPredictions, predict_treebank
 from rntn_engine.run.fault_injection import fault_from_environment
 from rntn_engine.run.run_config import (
@@ -76,6 +77,7 @@ from rntn_engine.run.run_directory import (
     write_json_atomic,
 )
 from rntn_engine.run.pretrained_start import extend_with_vector_words, initial_word_vectors, resolve_dim
+from rntn_engine.run.process_group import PeerStopped, SingleProcess
 from rntn_engine.run.run_errors import RunDirectoryError, TrainingError
 from rntn_engine.run.run_state import RunState
 from rntn_engine.run.scores import LabelScheme, accuracy, binary_accuracy, confusion_matrix, macro_f1, majority_class
@@ -209,27 +211,68 @@ class Trainer:
     """Owns one training session in a run directory (see module docstring)."""
 
     def __init__(self, run_dir: Path, config: TrainConfig, echo: Callable[[str], None] = print,
-                 show_progress: bool | None = None, stop: StopRequest | None = None) -> None:
+                 show_progress: bool | None = None, stop: StopRequest | None = None,
+                 group: SingleProcess | None = None) -> None:
         self.run_dir = run_dir
         self.stop = stop or StopRequest()
         self.config = config
-        self.echo = echo
-        self.show_progress = show_progress
+        self.group = group or SingleProcess()
+        self.echo = echo if self.group.is_root else _silent  # rank 0 alone prints, writes and shows progress
+        self.show_progress = show_progress if self.group.is_root else False
+        self.pending_error: Exception | None = None  # rank 0's failed write, told to every rank at agree()
         self.fault = fault_from_environment()
         self.last_saved_step: int | None = None
         self.last_save_time = time.monotonic()
         self.last_heartbeat = 0.0
         self.anchors: dict[str, np.ndarray] = {}  # what the word arrays' L2 terms pull toward (run state)
 
+    # .. rank 0 writes; every rank agrees ...................................................................
+
+    def on_root(self, action: Callable[[], object]) -> None:
+        """Run a write on rank 0 only. One process: an error raises at once. Several ranks: rank 0 keeps the
+        error and every rank raises at the next :meth:`agree` or :meth:`sync`, so all stop together."""
+        if not self.group.is_root or self.pending_error is not None:
+            return
+        if self.group.size == 1:
+            action()
+            return
+        try:
+            action()
+        except (TrainingError, InputError, RunDirectoryError) as exc:
+            self.pending_error = exc
+
+    def agree(self) -> bool:
+        """Every rank, at every minibatch boundary: stop now? (combined over the ranks; raises rank 0's error)."""
+        status = 2 if self.pending_error is not None else (1 if self.stop.should_stop() else 0)
+        status = self.group.largest(status)
+        if status == 2:
+            self.sync()
+        if status == 1 and self.stop.reason is None:
+            self.stop.request("a stop of another rank")
+        return status == 1
+
+    def sync(self) -> None:
+        """Every rank: raise rank 0's pending write error, if any (rank 0 its own error, the others PeerStopped)."""
+        if self.group.any_true(self.pending_error is not None):
+            if self.pending_error is not None:
+                raise self.pending_error
+            raise PeerStopped(1)
+
     # .. checkpoints ...........................................................................................
 
     def save(self, params: Parameters, optimiser: AdaGrad, state: RunState, history: list[dict],
              data: TrainingData) -> Path:
-        """Write a checkpoint of the current state, then prune old ones. Never on NaN, never over a good one."""
+        """Write a checkpoint of the current state (rank 0), then prune old ones. Never on NaN, never over a
+        good one. Returns the checkpoint's path on every rank."""
+        path = self.run_dir / checkpoint_name(state.step)
+        self.on_root(lambda: self._save(path, params, optimiser, state, history, data))
+        return path
+
+    def _save(self, path: Path, params: Parameters, optimiser: AdaGrad, state: RunState, history: list[dict],
+              data: TrainingData) -> None:
         if not np.all(np.isfinite(params.flat)):
             raise TrainingError(f"parameters hold NaN or Inf at step {state.step}; not saving them. The last "
                                 f"good checkpoint is untouched: lower --lr and resume from it, or start again")
-        path = self.run_dir / checkpoint_name(state.step)
         try:
             save_checkpoint(path, params, data.vocabulary, self.config, optimiser.sums, state.to_dict(), history,
                             data.hashes, fault=self.fault, anchors=self.anchors)
@@ -242,7 +285,6 @@ class Trainer:
         self.last_save_time = time.monotonic()
         protect = {self.run_dir / state.best_checkpoint} if state.best_checkpoint else set()
         prune_checkpoints(self.run_dir, self.config.keep_checkpoints, protect | {path}, fault=self.fault)
-        return path
 
     def heartbeat(self, state: RunState, n_trees: int, steps_per_epoch: int, rate: float | None,
                   force: bool = False) -> None:
@@ -256,7 +298,11 @@ class Trainer:
             "steps_per_epoch": steps_per_epoch, "nodes_per_second": rate, "finished": state.finished}))
 
     def write_run_file(self, name: str, write: Callable[[], None]) -> None:
-        """Run one write of a run-directory file; an OS error becomes one line naming the intact checkpoint."""
+        """Run one write of a run-directory file (rank 0); an OS error becomes one line naming the intact
+        checkpoint."""
+        self.on_root(lambda: self._write_run_file(name, write))
+
+    def _write_run_file(self, name: str, write: Callable[[], None]) -> None:
         try:
             if self.fault:
                 self.fault(f"run_file:{name}")
@@ -274,6 +320,7 @@ class Trainer:
         config = self.config
         # --- restore: data, parameters, optimiser, position -- all at this one point --------------------------
         data = load_training_data(config, checkpoint.vocabulary if checkpoint else None)
+        self.group.same_on_all(data.hashes, "content of the data files (SHA-256)")
         if self.fault:
             self.fault("data_loaded")
         bank = data.train
@@ -319,8 +366,9 @@ class Trainer:
                   f"({shape.training_bytes() / 2**20:.1f} MiB with gradient and AdaGrad state), {where}")
         if data.dev is not None and checkpoint is None:
             self.echo(majority_baseline_line(bank, data.dev))
-        if checkpoint is None and not list_checkpoints(self.run_dir):
-            self.save(params, optimiser, state, history, data)  # step 0: a resume never starts from nothing
+        if checkpoint is None:  # step 0: a resume never starts from nothing
+            self.on_root(lambda: list_checkpoints(self.run_dir) or self._save(
+                self.run_dir / checkpoint_name(0), params, optimiser, state, history, data))
         session_start = time.monotonic()
         seconds_before = state.training_seconds
         rate: float | None = None
@@ -334,19 +382,20 @@ class Trainer:
                 t_epoch, nodes_epoch_session = time.perf_counter(), 0
                 while state.position < bank.n_trees:
                     # --- stop requested? checkpoint at this minibatch boundary and leave ------------------
-                    if stop.should_stop():
+                    if self.agree():
                         bar.close()
                         state.training_seconds = seconds_before + time.monotonic() - session_start
                         if self.last_saved_step != state.step:
                             self.save(params, optimiser, state, history, data)
                         self.heartbeat(state, bank.n_trees, steps_per_epoch, rate, force=True)
+                        self.sync()
                         self.echo(f"stopped by {stop.reason} at step {state.step} with a checkpoint; "
                                   f"continue with `rntn resume {self.run_dir}`")
                         return EXIT_STOPPED_RESUMABLE
                     # --- forward / backward / update -------------------------------------------------------
                     tree_ids = order[state.position : state.position + config.batch_size]
                     chunks = split_into_chunks(bank, tree_ids, config.grad_chunks)
-                    loss = objective.loss_and_gradient(params, grads, chunks, include_l2=False)
+                    loss = objective.loss_and_gradient(params, grads, chunks, include_l2=False, group=self.group)
                     if not np.isfinite(loss):
                         raise TrainingError(f"loss became {loss} at epoch {state.epoch + 1}, step {state.step + 1}; "
                                             f"the last good checkpoint is untouched. Lower --lr (now {config.lr}) "
@@ -410,6 +459,7 @@ class Trainer:
         if self.fault:
             self.fault("final_model")
         self.write_final_model(params, optimiser.sums, state, history, data.vocabulary, data.hashes, self.anchors)
+        self.sync()
         return EXIT_FINISHED  # a stop asked for while the final model was written: the run is complete anyway
 
     def evaluate(self, objective: TreeModelObjective, params: Parameters, state: RunState,
@@ -426,7 +476,13 @@ class Trainer:
 
     def write_final_model(self, params: Parameters, sums: Parameters | None, state: RunState, history: list[dict],
                           vocabulary: Vocabulary, data_hashes: dict, anchors: dict) -> None:
-        """model.h5: the best checkpoint (``final_model = best`` and a best exists), else the last parameters."""
+        """model.h5 (rank 0): the best checkpoint (``final_model = best`` and a best exists), else the last
+        parameters."""
+        self.on_root(lambda: self._write_final_model(params, sums, state, history, vocabulary, data_hashes,
+                                                     anchors))
+
+    def _write_final_model(self, params: Parameters, sums: Parameters | None, state: RunState,
+                           history: list[dict], vocabulary: Vocabulary, data_hashes: dict, anchors: dict) -> None:
         path = self.run_dir / MODEL_FILE
         best = self.run_dir / state.best_checkpoint if state.best_checkpoint else None
         try:
@@ -444,6 +500,10 @@ class Trainer:
         about = f"; best {self.config.best_metric} {state.best_value:.4f} in {state.best_checkpoint}" \
             if state.best_value is not None else ""
         self.echo(f"saved {path}: the last parameters{about}")
+
+
+def _silent(line: str) -> None:
+    return None
 
 
 def is_better(metric: str, value: float, best: float | None) -> bool:
@@ -492,26 +552,31 @@ def finished_with_nothing_to_do(checkpoint: Checkpoint, epochs: int) -> bool:
 
 
 def start_training(config: TrainConfig, echo: Callable[[str], None] = print,
-                   show_progress: bool | None = None, stop: StopRequest | None = None) -> int:
+                   show_progress: bool | None = None, stop: StopRequest | None = None,
+                   group: SingleProcess | None = None) -> int:
     """`rntn train`: a new run in a new or empty run directory.
 
     A start that fails before its first checkpoint is committed (a bad vector file, a treebank
     error, the memory guard) removes what it created, so the same command can simply be run again.
+    Under MPI (``group``), rank 0 makes the directory and holds its lock; every rank trains.
     """
+    group = group or SingleProcess()
+    echo = echo if group.is_root else _silent
     config.validate()
     resolve_data_paths(config)
     stop = stop or StopRequest()
     with stop:
         resolve_dim(config)
-        run_dir = prepare_new_run_directory(config)
-        created = not any(run_dir.iterdir())
+        run_dir = config.resolved_run_dir()
+        created = group.root_now(lambda: not any(prepare_new_run_directory(config).iterdir()))
         try:
-            with RunLock(run_dir):
-                trainer = Trainer(run_dir, config, echo, show_progress, stop)
+            with RunLock(run_dir) if group.is_root else nullcontext():
+                trainer = Trainer(run_dir, config, echo, show_progress, stop, group)
                 trainer.write_run_file(CONFIG_FILE, lambda: write_config_file(run_dir, config.to_toml()))
+                trainer.sync()
                 return trainer.run(None)
         except BaseException:
-            if created and not list_checkpoints(run_dir):
+            if group.is_root and created and not list_checkpoints(run_dir):
                 remove_failed_start(run_dir)
             raise
 
@@ -532,15 +597,27 @@ def remove_failed_start(run_dir: Path) -> None:
 
 def resume_training(run_dir: Path, overrides: dict, echo: Callable[[str], None] = print,
                     show_progress: bool | None = None, allow_changed_data: bool = False,
-                    stop: StopRequest | None = None) -> int:
-    """`rntn resume`: continue the run in ``run_dir`` from its newest valid checkpoint."""
+                    stop: StopRequest | None = None, group: SingleProcess | None = None) -> int:
+    """`rntn resume`: continue the run in ``run_dir`` from its newest valid checkpoint.
+
+    Under MPI (``group``), with any number of ranks: rank 0 holds the lock and picks the checkpoint
+    (setting damaged ones aside); every rank reads that one, and every rank must see data files with
+    the checkpoint's hashes.
+    """
+    group = group or SingleProcess()
+    echo = echo if group.is_root else _silent
     stop = stop or StopRequest()
     with stop:
         config = stored_config(run_dir)
-        with RunLock(run_dir):
-            for leftover in remove_leftover_temp_files(run_dir):
-                echo(f"removed the leftover of an interrupted write: {leftover.name}")
-            checkpoint = load_latest_valid_checkpoint(run_dir, echo)
+        with RunLock(run_dir) if group.is_root else nullcontext():
+            def pick() -> Checkpoint | None:
+                for leftover in remove_leftover_temp_files(run_dir):
+                    echo(f"removed the leftover of an interrupted write: {leftover.name}")
+                return load_latest_valid_checkpoint(run_dir, echo)
+
+            picked = group.root_now(pick)  # rank 0's choice; the other ranks read the same file
+            chosen = group.broadcast_text(picked.path if picked is not None else "")
+            checkpoint = picked if group.is_root else (load_checkpoint(chosen) if chosen else None)
             if checkpoint is not None:
                 differing = config_differences(checkpoint.config, config, ignore=RESUME_CHANGEABLE)
                 if differing:
@@ -556,6 +633,7 @@ def resume_training(run_dir: Path, overrides: dict, echo: Callable[[str], None] 
             config.validate()
             if checkpoint is not None:
                 hashes = data_file_hashes(config, run_dir)
+                group.same_on_all(hashes, "content of the data files (SHA-256)")
                 changed = [k for k, v in hashes.items() if checkpoint.data_hashes.get(k) != v]
                 if changed and not allow_changed_data:
                     what = ("is not the file the run was trained on" if set(changed) <= set(moved) else
@@ -563,7 +641,7 @@ def resume_training(run_dir: Path, overrides: dict, echo: Callable[[str], None] 
                     paths = ", ".join(getattr(config, k) for k in changed)
                     raise RunDirectoryError(f"{run_dir}: the content of {', '.join(changed)} {what} ({paths}); "
                                             f"pass --allow-changed-data to continue anyway")
-            trainer = Trainer(run_dir, config, echo, show_progress, stop)
+            trainer = Trainer(run_dir, config, echo, show_progress, stop, group)
             best = RunState.from_record(checkpoint.state).best_checkpoint if checkpoint is not None else ""
             if best and (run_dir / best).is_file():  # best.h5 may lag its checkpoint after a crash
                 trainer.write_run_file(BEST_FILE, lambda: keep_as(run_dir / best, run_dir / BEST_FILE))
@@ -573,9 +651,11 @@ def resume_training(run_dir: Path, overrides: dict, echo: Callable[[str], None] 
                     trainer.write_final_model(checkpoint.params, checkpoint.adagrad_sums, state,
                                               list(checkpoint.metrics), checkpoint.vocabulary,
                                               checkpoint.data_hashes, checkpoint.anchors)
+                trainer.sync()
                 echo(f"run already finished at step {state.step} ({state.finish_reason}); nothing to do")
                 return EXIT_FINISHED
             trainer.write_run_file(CONFIG_FILE, lambda: write_config_file(run_dir, config.to_toml()))
+            trainer.sync()
             if checkpoint is not None:
                 checkpoint.config = config
             return trainer.run(checkpoint)

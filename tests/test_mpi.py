@@ -1,0 +1,157 @@
+"""Data-parallel training over MPI ranks (``--mpi``): bitwise the same as one process.
+
+Runs the real launcher, ``mpiexec -n 2``, from the [mpi] extra (mpi4py with an MPI library from
+PyPI). Every comparison is against one-process training of the same settings.
+"""
+
+import os
+import shutil
+import signal
+import subprocess
+import sys
+import time
+
+import numpy as np
+import pytest
+
+from demo_slices import write_demo_slices
+from rntn_engine.cli.app import main
+from rntn_engine.run.checkpoints import load_checkpoint
+from rntn_engine.run.run_directory import list_checkpoints
+
+pytest.importorskip("mpi4py")
+MPIEXEC = shutil.which("mpiexec")
+pytestmark = pytest.mark.skipif(MPIEXEC is None, reason="needs mpiexec (the [mpi] extra)")
+RNTN = [sys.executable, "-m", "rntn_engine.cli.app"]
+
+
+@pytest.fixture(scope="module")
+def data(tmp_path_factory):
+    root = tmp_path_factory.mktemp("mpi")
+    write_demo_slices(root, 40, 10)
+    return root
+
+
+def train_args(data, run_dir, model="rntn", dtype="float64", epochs=2, extra=()):
+    return ["train", "--train-file", str(data / "train.trees"), "--dev-file", str(data / "dev.trees"), "--dim", "3",
+            "--model", model, "--dtype", dtype, "--epochs", str(epochs), "--batch-size", "8", "--grad-chunks", "3",
+            "--checkpoint-every-steps", "2", "--final-model", "last", "--run-dir", str(run_dir), "--no-progress",
+            *extra]
+
+
+def train_here(args):
+    """One-process training in this process (no interpreter start): the reference."""
+    assert main(args) == 0
+
+
+def run(args, ranks=1, env_extra=None, **kw):
+    env = {k: v for k, v in os.environ.items() if not k.startswith("RNTN_FAULT_")}
+    env.update(env_extra or {})
+    command = RNTN + args if ranks == 1 else [MPIEXEC, "-n", str(ranks), *RNTN, *args, "--mpi"]
+    return subprocess.run(command, capture_output=True, text=True, env=env, timeout=600, **kw)
+
+
+def final(run_dir):
+    c = load_checkpoint(run_dir / "model.h5")
+    return c.params.flat, c.adagrad_sums.flat
+
+
+SETTINGS = [(m, t) for m in ("rnn", "rntn", "mvrnn") for t in ("float32", "float64")]
+ALL_SETTINGS_ON_TWO_RANKS = """
+import sys
+from rntn_engine.cli.app import main
+for args in {arg_lists!r}:
+    code = main(args + ["--mpi"])
+    if code:
+        sys.exit(code)
+"""
+
+
+def test_two_ranks_train_bitwise_like_one_process(data, tmp_path):
+    # rnn, rntn and mvrnn, float32 and float64: all six trained in one MPI job (one launch: the suite stays fast)
+    arg_lists = [train_args(data, tmp_path / f"two-{m}-{t}", m, t) for m, t in SETTINGS]
+    done = subprocess.run([MPIEXEC, "-n", "2", sys.executable, "-c", ALL_SETTINGS_ON_TWO_RANKS.format(
+        arg_lists=arg_lists)], capture_output=True, text=True, timeout=600)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.count("saved") == len(SETTINGS)  # rank 0 alone prints
+    for model, dtype in SETTINGS:
+        one, two = tmp_path / f"one-{model}-{dtype}", tmp_path / f"two-{model}-{dtype}"
+        train_here(train_args(data, one, model, dtype))
+        for a, b in zip(final(one), final(two)):
+            assert np.array_equal(a, b), (model, dtype)
+        assert [c.step for c in list_checkpoints(one)] == [c.step for c in list_checkpoints(two)]
+
+
+def test_sigterm_to_the_launcher_stops_once_and_a_one_process_resume_finishes_the_same(data, tmp_path):
+    reference = tmp_path / "reference"
+    train_here(train_args(data, reference, epochs=8))
+    run_dir = tmp_path / "run"
+    launcher = subprocess.Popen([MPIEXEC, "-n", "2", *RNTN, *train_args(data, run_dir, epochs=8), "--mpi"],
+                                stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    for line in launcher.stdout:
+        if line.startswith("epoch   2"):
+            launcher.send_signal(signal.SIGTERM)
+            break
+    out, err = launcher.communicate(timeout=300)
+    assert launcher.returncode == 75, err
+    assert out.count("stopped by SIGTERM") == 1
+    assert run(["resume", str(run_dir), "--no-progress"]).returncode == 0
+    for a, b in zip(final(reference), final(run_dir)):
+        assert np.array_equal(a, b)
+
+
+def test_resume_with_any_number_of_ranks_one_two_one(data, tmp_path):
+    reference = tmp_path / "reference"
+    train_here(train_args(data, reference, epochs=6))
+    run_dir = tmp_path / "run"
+    stop_at = {"RNTN_FAULT_POINT": "step", "RNTN_FAULT_ACTION": "term", "RNTN_FAULT_AFTER": "5"}
+    assert run(train_args(data, run_dir, epochs=6), env_extra=stop_at).returncode == 75
+    assert list_checkpoints(run_dir)[-1].step == 5
+    done = run(["resume", str(run_dir), "--no-progress"], ranks=2, env_extra=stop_at)  # 5 more steps, on 2 ranks
+    assert done.returncode == 75, done.stderr
+    assert list_checkpoints(run_dir)[-1].step == 10
+    assert run(["resume", str(run_dir), "--no-progress"]).returncode == 0
+    for a, b in zip(final(reference), final(run_dir)):
+        assert np.array_equal(a, b)
+
+
+def test_a_killed_rank_ends_the_job_and_leaves_a_resumable_run(data, tmp_path):
+    reference = tmp_path / "reference"
+    train_here(train_args(data, reference, epochs=8))
+    run_dir = tmp_path / "run"
+    launcher = subprocess.Popen([MPIEXEC, "-n", "2", *RNTN, *train_args(data, run_dir, epochs=8), "--mpi"],
+                                stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    for line in launcher.stdout:
+        if line.startswith("epoch   2"):
+            break
+    ranks = subprocess.run(["pgrep", "-f", "-P", str(launcher.pid)], capture_output=True, text=True).stdout.split()
+    ranks = ranks or subprocess.run(["pgrep", "-f", str(run_dir)], capture_output=True, text=True).stdout.split()
+    victim = max(int(p) for p in ranks if int(p) != launcher.pid)  # a rank, not rank 0's launcher
+    os.kill(victim, signal.SIGKILL)
+    launcher.communicate(timeout=120)
+    assert launcher.returncode != 0
+    time.sleep(0.5)
+    for c in list_checkpoints(run_dir):
+        load_checkpoint(c.path)  # every checkpoint verifies
+    assert run(["resume", str(run_dir), "--no-progress"]).returncode == 0
+    for a, b in zip(final(reference), final(run_dir)):
+        assert np.array_equal(a, b)
+
+
+def test_a_rank_that_reads_other_data_stops_the_job_naming_it(data, tmp_path):
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    for name in ("train.trees", "dev.trees"):
+        shutil.copy(data / name, tmp_path / name)
+        shutil.copy(data / name, elsewhere / name)
+    with open(elsewhere / "train.trees", "a", encoding="utf-8") as fh:
+        fh.write("(3 (2 the) (3 ferns))\n")
+    args = ["train", "--train-file", "train.trees", "--dim", "3", "--epochs", "1", "--run-dir", str(tmp_path / "run"),
+            "--no-progress", "--mpi"]
+    # two ranks started in two working directories: the same relative path, different files
+    done = subprocess.run([MPIEXEC, "-n", "1", "-wdir", str(tmp_path), *RNTN, *args, ":",
+                           "-n", "1", "-wdir", str(elsewhere), *RNTN, *args], capture_output=True, text=True,
+                          timeout=300)
+    assert done.returncode == 1, done.stderr
+    assert "rank 1 sees a different content of the data files" in done.stderr
+    assert done.stderr.count("rntn: error") == 1
