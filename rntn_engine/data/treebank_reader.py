@@ -94,7 +94,7 @@ MAX_LABEL = 2**31 - 1  # labels are stored as int32
 PROGRESS_EVERY = 4096  # lines between two calls of the progress callback (exact reader)
 
 _TOKEN_RE = re.compile(r"[()]|[^()" + re.escape(SEPARATORS) + r"]+")
-_BOM = b"\xef\xbb\xbf"
+BOM = b"\xef\xbb\xbf"
 _EXPECT_TEXT = "expected UTF-8 text with bracketed trees"
 # Leading bytes of files that are certainly not a treebank, and what they are.
 _SIGNATURES = (
@@ -126,8 +126,8 @@ def parse_tree(
     syntactic category such as ``NP``) and stores every node as unlabelled: the mode for
     trees whose labels are to be predicted.
     """
-    mode = _check_options(num_classes, binarise)
-    labels = _AnyLabel() if ignore_labels else _LabelReader(num_classes)
+    mode = check_options(num_classes, binarise)
+    labels = _AnyLabel() if ignore_labels else LabelReader(num_classes)
     lines = [t.rstrip("\r") for t in text.rstrip("\r\n").split("\n")]
     body = lines[0].lstrip(SEPARATORS)
     if not body or body[0] == "#":
@@ -166,10 +166,9 @@ def iter_trees(
     the first bad record, or at the end if the file held no tree. Memory is bounded
     by one block, not by the file.
     """
-    mode = _check_options(num_classes, binarise)  # now, not at the first next()
-    return _iter_file(os.fspath(path), _LabelReader(num_classes), mode, progress)  # TEMP
-    from rntn_engine.data.treebank_bulk import iter_tree_blocks, trees_of_block
-    blocks = iter_tree_blocks(path, num_classes=num_classes, binarise=mode, progress=progress)
+    from rntn_engine.data.treebank_bulk import iter_tree_blocks, trees_of_block  # it builds on this module
+
+    blocks = iter_tree_blocks(path, num_classes=num_classes, binarise=binarise, progress=progress)  # checks now
     return (tree for block in blocks for tree in trees_of_block(block))
 
 
@@ -182,8 +181,8 @@ def iter_trees_exact(
 ) -> Iterator[Tree]:
     """:func:`iter_trees` with the exact reader alone, line by line (``progress`` every
     :data:`PROGRESS_EVERY` lines): the reference the bulk reader is tested against."""
-    mode = _check_options(num_classes, binarise)
-    return _iter_file(os.fspath(path), _LabelReader(num_classes), mode, progress)
+    mode = check_options(num_classes, binarise)
+    return _iter_file(os.fspath(path), LabelReader(num_classes), mode, progress)
 
 
 def read_trees(
@@ -211,12 +210,11 @@ class RecordAssembler:
     returns what is still open at the end of the input, or None.
     """
 
-    __slots__ = ("lines", "depth", "size")
+    __slots__ = ("lines", "depth")
 
     def __init__(self) -> None:
         self.lines: list[tuple[int, str]] = []
         self.depth = 0  # '(' minus ')' so far in the open record
-        self.size = 0  # characters so far in the open record
 
     @property
     def open(self) -> bool:
@@ -228,27 +226,26 @@ class RecordAssembler:
             if not body or body[0] == "#":
                 return None  # blank line or comment between trees
         elif text[:1] == "(":
-            record, self.lines, self.depth, self.size = self.lines, [], 0, 0
+            record, self.lines, self.depth = self.lines, [], 0
             return record, line_no
         self.lines.append((line_no, text))
-        self.size += len(text) + 1
         self.depth += text.count("(") - text.count(")")
         if self.depth > 0:
             return None
-        record, self.lines, self.depth, self.size = self.lines, [], 0, 0
+        record, self.lines, self.depth = self.lines, [], 0
         return record, None
 
     def finish(self) -> tuple[list[tuple[int, str]], int | None] | None:
         if not self.lines:
             return None
-        record, self.lines, self.depth, self.size = self.lines, [], 0, 0
+        record, self.lines, self.depth = self.lines, [], 0
         return record, None
 
 
 # --- checks on whole lines and files -------------------------------------------------------------
 
 
-class _LineSource:
+class LineSource:
     """Raw lines of a binary file, optionally after bytes already read from it (``prefix``)."""
 
     __slots__ = ("f", "buffer", "pos")
@@ -282,7 +279,7 @@ class ExactRecordReader:
     offset just before the first line of ``source``.
     """
 
-    def __init__(self, source: _LineSource, name: str, labels: "_LabelReader", mode: str,
+    def __init__(self, source: LineSource, name: str, labels: "LabelReader", mode: str,
                  line_no: int = 0, offset: int = 0) -> None:
         self.source = source
         self.name = name
@@ -291,31 +288,40 @@ class ExactRecordReader:
         self.line_no = line_no
         self.offset = offset
         self.records = RecordAssembler()
+        self.record_bytes = 0  # bytes of the lines of the open record so far
+        self.record_line = 0  # first line of the last record read
         self.unreported = 0  # lines read and not yet passed to a progress callback
 
     def next_tree(self) -> Tree | None:
         """The next tree, or None at the end of the file."""
         name, records = self.name, self.records
         while True:
-            raw = self.source.readline(MAX_LINE_BYTES + 1)
+            bom = len(BOM) if self.line_no == 0 and self.offset == len(BOM) else 0  # read past already
+            raw = self.source.readline(MAX_LINE_BYTES + 1 - bom)
             if not raw:
                 done = records.finish()
                 if done is None:
                     return None
+                self.record_line = done[0][0][0]
                 return _parse_record(done[0], name, self.labels, self.mode, None, end="the end of the file")
             self.line_no += 1
             self.unreported += 1
-            if len(raw) > MAX_LINE_BYTES and raw[-1:] != b"\n":
+            if len(raw) + bom > MAX_LINE_BYTES and raw[-1:] != b"\n":
                 raise TreebankError(name, f"line longer than {MAX_LINE_BYTES} bytes: {_EXPECT_TEXT}", self.line_no, 1)
-            if self.offset == 0 and raw.startswith(_BOM):
-                raw = raw[len(_BOM) :]
-                self.offset = len(_BOM)
+            if self.offset == 0 and raw.startswith(BOM):
+                raw = raw[len(BOM) :]
+                self.offset = len(BOM)
             text = _decode_line(raw, name, self.line_no, self.offset).rstrip("\r\n")
             self.offset += len(raw)
+            was_open = records.open
             done = records.feed(self.line_no, text)
             if done is not None:
+                self.record_line = done[0][0][0]
                 return _parse_record(done[0], name, self.labels, self.mode, done[1], end="the end of the file")
-            if records.open and records.size > MAX_TREE_BYTES:
+            if not records.open:
+                continue
+            self.record_bytes = (self.record_bytes if was_open else 0) + len(raw)
+            if self.record_bytes > MAX_TREE_BYTES:
                 first_line, first_text = records.lines[0]
                 column = len(first_text) - len(first_text.lstrip(SEPARATORS)) + 1
                 raise TreebankError(
@@ -324,13 +330,13 @@ class ExactRecordReader:
                 )
 
 
-def _iter_file(name: str, labels: _LabelReader, mode: str, progress: Callable[[int], None] | None) -> Iterator[Tree]:
+def _iter_file(name: str, labels: LabelReader, mode: str, progress: Callable[[int], None] | None) -> Iterator[Tree]:
     """The generator behind :func:`iter_trees_exact`."""
     n_trees = 0
     try:
         with open(name, "rb") as f:
             check_signature(name, f.peek(16)[:16])
-            reader = ExactRecordReader(_LineSource(f), name, labels, mode)
+            reader = ExactRecordReader(LineSource(f), name, labels, mode)
             while True:
                 tree = reader.next_tree()
                 if progress is not None and (reader.unreported >= PROGRESS_EVERY or tree is None):
@@ -355,7 +361,7 @@ def no_tree_error(name: str, n_lines: int) -> TreebankError:
     return TreebankError(name, f"{what}: expected bracketed trees", 1, 1)
 
 
-def _check_options(num_classes: int | None, binarise: str) -> str:
+def check_options(num_classes: int | None, binarise: str) -> str:
     if binarise not in BINARISE_MODES:
         raise ValueError(f"binarise must be one of {BINARISE_MODES}, not {binarise!r}")
     if num_classes is not None and (not isinstance(num_classes, int) or num_classes < 1):
@@ -392,7 +398,7 @@ def _decode_line(raw: bytes, name: str, line_no: int, offset: int) -> str:
 # --- labels --------------------------------------------------------------------------------------
 
 
-class _LabelReader:
+class LabelReader:
     """Label token -> class number, with a cache of the tokens already seen (a few at most)."""
 
     __slots__ = ("known", "num_classes", "expected")
@@ -421,7 +427,7 @@ class _LabelReader:
         return f"{self.expected}; found {_quote(token)}"
 
 
-class _AnyLabel(_LabelReader):
+class _AnyLabel(LabelReader):
     """Every label token reads as unlabelled (see ``ignore_labels``)."""
 
     def __init__(self) -> None:
@@ -436,7 +442,7 @@ class _AnyLabel(_LabelReader):
 # --- the record parser ---------------------------------------------------------------------------
 
 
-def _parse_record(lines: list[tuple[int, str]], path: str, labels: _LabelReader, mode: str,
+def _parse_record(lines: list[tuple[int, str]], path: str, labels: LabelReader, mode: str,
                   cut_by: int | None, end: str) -> Tree:
     """Parse one record (its lines, see :class:`RecordAssembler`) holding one tree, binarising
     and collapsing as it goes (no recursion).
