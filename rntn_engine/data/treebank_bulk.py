@@ -35,7 +35,7 @@ from rntn_engine.data.treebank_reader import (
     check_signature,
     no_tree_error,
 )
-from rntn_engine.data.treebank_scan import MODE_CODES, STOPPED, scan_records
+from rntn_engine.data.treebank_scan import MODE_CODES, STOPPED, count_opens_and_lines, scan_records
 
 BLOCK_BYTES = 4 * 1024 * 1024  # bytes read per block (the scanner's share of memory grows with it)
 
@@ -131,12 +131,12 @@ def _blocks(name: str, num_classes: int | None, mode: str, progress: Callable[[i
                     data += more
                     continue
                 usable = len(data) if eof else data.rfind(b"\n") + 1
-                bad = _first_bad_byte(data, usable)
+                bad, text = _check_text(data, usable)
                 scan_end = usable if bad < 0 else data.rfind(b"\n", 0, bad) + 1
                 at_eof = eof and bad < 0 and scan_end == len(data)
                 extra = len(BOM) if lines == 0 and offset == len(BOM) else 0
-                block, status, consumed, used_lines = _scan(name, data, scan_end, at_eof, extra, num_classes, mode,
-                                                            lines)
+                block, status, consumed, used_lines = _scan(name, data, text, scan_end, at_eof, extra, num_classes,
+                                                            mode, lines)
                 if block is not None:
                     n_trees += block.n_trees
                     yield block
@@ -171,45 +171,46 @@ def _blocks(name: str, num_classes: int | None, mode: str, progress: Callable[[i
         raise no_tree_error(name, max(lines, int(offset > 0)))  # a byte-order mark alone is one line
 
 
-def _first_bad_byte(data: bytes, end: int) -> int:
-    """Offset of the first NUL byte or invalid UTF-8 sequence in ``data[:end]``, or -1."""
+def _check_text(data: bytes, end: int) -> tuple[int, str | None]:
+    """(offset of the first NUL byte or invalid UTF-8 sequence in ``data[:end]`` or -1,
+    the decoded text when it is all ASCII, else None)."""
     bad = data.find(b"\x00", 0, end)
     try:
-        codecs.utf_8_decode(memoryview(data)[: end if bad < 0 else bad], "strict", True)
+        text, _ = codecs.utf_8_decode(memoryview(data)[: end if bad < 0 else bad], "strict", True)
     except UnicodeDecodeError as exc:
-        return exc.start
-    return bad
+        return exc.start, None
+    return bad, text if bad < 0 and len(text) == end else None
 
 
-def _scan(name: str, data: bytes, end: int, at_eof: bool, extra: int, num_classes: int | None, mode: str,
+def _scan(name: str, data: bytes, text: str | None, end: int, at_eof: bool, extra: int, num_classes: int | None, mode: str,
           lines_before: int) -> tuple[TreeBlock | None, int, int, int]:
     """Run the scanner over ``data[:end]``; (block or None, status, bytes consumed, lines consumed)."""
-    opens = data.count(b"(", 0, end)
-    n_lines = data.count(b"\n", 0, end) + 1
     buffer = np.frombuffer(data, dtype=np.uint8)
+    opens, breaks = count_opens_and_lines(buffer, end)
     node_word = np.empty(2 * opens + 1, dtype=np.int32)
     node_left = np.empty(2 * opens + 1, dtype=np.int32)
     node_right = np.empty(2 * opens + 1, dtype=np.int32)
     node_label = np.empty(2 * opens + 1, dtype=np.int32)
     leaf_token = np.empty(opens + 1, dtype=np.int32)
-    max_trees = min(opens, n_lines) + 1
+    max_trees = min(opens, breaks + 1) + 1
     tree_nodes = np.empty(max_trees + 1, dtype=np.int64)
     tree_leaves = np.empty(max_trees + 1, dtype=np.int64)
     tree_line = np.empty(max_trees, dtype=np.int64)
     word_start = np.empty(opens + 1, dtype=np.int32)
     word_end = np.empty(opens + 1, dtype=np.int32)
-    word_hash = np.empty(opens + 1, dtype=np.uint64)
-    table = np.full(1 << max(6, int(2 * opens + 2).bit_length()), -1, dtype=np.int32)
     stack = np.empty((opens + 1, 3), dtype=np.int32)
     kids = np.empty(opens + 1, dtype=np.int32)
     status, n_trees, n_nodes, n_leaves, n_words, consumed, used_lines = scan_records(
         buffer, end, at_eof, extra, MODE_CODES[mode], num_classes or 0, treebank_reader.MAX_LINE_BYTES,
         treebank_reader.MAX_TREE_BYTES, node_word, node_left, node_right, node_label, leaf_token, tree_nodes,
-        tree_leaves, tree_line, word_start, word_end, word_hash, table, stack, kids)
+        tree_leaves, tree_line, word_start, word_end, stack, kids)
     if n_trees == 0:
         return None, status, consumed, used_lines
     starts, ends = word_start[:n_words].tolist(), word_end[:n_words].tolist()
-    words = [data[s:e].decode("utf-8") for s, e in zip(starts, ends)]
+    if text is not None:  # ASCII: byte offsets are character offsets
+        words = [text[s:e] for s, e in zip(starts, ends)]
+    else:
+        words = [data[s:e].decode("utf-8") for s, e in zip(starts, ends)]
     words = [unescape_token(w) if "-" in w else w for w in words]
     block = TreeBlock(
         name, words, leaf_token[:n_leaves].copy(), node_word[:n_nodes].copy(), node_left[:n_nodes].copy(),

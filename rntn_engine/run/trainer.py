@@ -31,9 +31,9 @@ from typing import Callable
 import numpy as np
 from tqdm import tqdm
 
-from rntn_engine.data.batches import EncodedTreebank, encode_treebank
-from rntn_engine.data.treebank_reader import read_trees
-from rntn_engine.data.vocabulary import Vocabulary, build_vocabulary
+from rntn_engine.data.batches import EncodedTreebank
+from rntn_engine.data.treebank_encoding import apply_vocabulary, read_encoded_treebank, read_treebank_words
+from rntn_engine.data.vocabulary import Vocabulary, vocabulary_from_counts
 from rntn_engine.model.adagrad import AdaGrad
 from rntn_engine.model.objective import L2Strengths, TreeModelObjective, split_into_chunks
 from rntn_engine.model.parameters import MemoryLimitError, ModelShape, Parameters, check_memory, init_parameters
@@ -124,20 +124,22 @@ def data_file_hashes(config: TrainConfig) -> dict[str, str]:
 
 
 def load_training_data(config: TrainConfig, vocabulary: Vocabulary | None = None) -> TrainingData:
-    """Read the treebanks (errors point at file:line:column), build or reuse the vocabulary, encode.
+    """Read the treebanks in bulk (errors point at file:line:column), build or reuse the vocabulary, encode.
 
-    A new vocabulary is built from the training trees, then extended with the vector
-    file's first words when ``extend_vocabulary`` asks for it (run/pretrained_start.py).
+    A new vocabulary is built from the training file's word counts, then extended with
+    the vector file's first words when ``extend_vocabulary`` asks for it
+    (run/pretrained_start.py). No Tree objects are made (data/treebank_encoding.py).
     """
-    train_trees = read_trees(config.train_file, num_classes=config.num_classes, binarise=config.binarise)
+    options = {"num_classes": config.num_classes, "binarise": config.binarise}
     if vocabulary is None:
-        vocabulary = extend_with_vector_words(config, build_vocabulary(train_trees, config.min_count,
-                                                                       config.lowercase))
-    dev = None
-    if config.dev_file:
-        dev_trees = read_trees(config.dev_file, num_classes=config.num_classes, binarise=config.binarise)
-        dev = encode_treebank(dev_trees, vocabulary)
-    return TrainingData(vocabulary, encode_treebank(train_trees, vocabulary), dev, data_file_hashes(config))
+        train, words = read_treebank_words(config.train_file, **options)
+        vocabulary = extend_with_vector_words(config, vocabulary_from_counts(words.as_dict(), config.min_count,
+                                                                             config.lowercase))
+        train = apply_vocabulary(train, words, vocabulary)
+    else:
+        train = read_encoded_treebank(config.train_file, vocabulary, **options)
+    dev = read_encoded_treebank(config.dev_file, vocabulary, **options) if config.dev_file else None
+    return TrainingData(vocabulary, train, dev, data_file_hashes(config))
 
 
 # --- starting and resuming -----------------------------------------------------------------------------
