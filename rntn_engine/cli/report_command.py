@@ -18,7 +18,6 @@ def report(
 ) -> None:
     """Write learning curves (training loss and dev scores over steps) and the confusion matrix of the
     best checkpoint (all nodes) as PNG files. Needs matplotlib: pip install 'rntn_engine[plot]'."""
-    from rntn_engine.data.treebank_reader import read_trees
     from rntn_engine.run.checkpoint_evaluation import detail_report
     from rntn_engine.run.checkpoints import load_checkpoint, newest_valid_checkpoint
     from rntn_engine.run.report_figures import MissingPlotLibrary, plot_confusion, plot_learning_curves, require_matplotlib
@@ -47,8 +46,7 @@ def report(
         typer.echo("no dev file in the run and no --treebank: confusion matrix skipped", err=True)
     else:
         best = load_checkpoint(best_path)
-        trees = read_trees(book, num_classes=config.num_classes, binarise=config.binarise)
-        detail = detail_report(best, trees)
+        detail = detail_report(best, str(book), binarise=config.binarise)
         written.append(plot_confusion(np.array(detail["all_nodes"]["confusion"]), out_dir / "confusion_best.png",
                                       f"best checkpoint {best_path.name}\non {book.name}, all nodes: "
                                       f"fine-grained accuracy {detail['scores']['fine_all']:.3f}"))

@@ -211,3 +211,17 @@ def _phrase_lengths(left: np.ndarray, right: np.ndarray, start: np.ndarray) -> n
 def phrase_lengths(bank: EncodedTreebank) -> np.ndarray:
     """(total_nodes,) int32: number of words under each node (children come before parents)."""
     return _phrase_lengths(bank.left, bank.right, bank.start)
+
+
+def bank_slice(bank: EncodedTreebank, a: int, z: int) -> EncodedTreebank:
+    """Trees ``a..z-1`` of ``bank`` as a bank of their own (views, no copy)."""
+    lo, hi = int(bank.start[a]), int(bank.start[z])
+    return EncodedTreebank(bank.word[lo:hi], bank.left[lo:hi], bank.right[lo:hi], bank.label[lo:hi],
+                           bank.start[a : z + 1] - lo)
+
+
+def concatenate_banks(first: EncodedTreebank, second: EncodedTreebank) -> EncodedTreebank:
+    """The trees of ``first`` then those of ``second``, in the wider of their dtypes."""
+    return EncodedTreebank(*(np.concatenate([getattr(first, n), getattr(second, n)])
+                             for n in ("word", "left", "right", "label")),
+                           np.concatenate([first.start, second.start[1:] + first.start[-1]]))
