@@ -152,6 +152,24 @@ def parse_tree(
     return tree
 
 
+def parse_record(
+    record: list[tuple[int, str]],
+    *,
+    path: str = "<string>",
+    cut_by: int | None = None,
+    num_classes: int | None = None,
+    binarise: str = "right",
+    ignore_labels: bool = False,
+) -> Tree:
+    """Parse one record of lines as grouped by :class:`RecordAssembler` (``cut_by`` as it returned it).
+
+    For readers of other line sources, such as standard input; options as in :func:`parse_tree`.
+    """
+    mode = check_options(num_classes, binarise)
+    labels = _AnyLabel() if ignore_labels else LabelReader(num_classes)
+    return _parse_record(record, str(path), labels, mode, cut_by, end="the end of the input")
+
+
 def iter_trees(
     path: str | os.PathLike,
     *,
