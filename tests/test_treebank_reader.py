@@ -202,13 +202,14 @@ def test_the_exact_reader_does_not_hold_the_file_in_memory(treebank_file):
 
 def test_the_bulk_reader_holds_one_block_not_the_file(treebank_file, monkeypatch):
     monkeypatch.setattr(treebank_bulk, "BLOCK_BYTES", 8192)
-    small = treebank_file(LINE * 4000, "small.trees")  # about 330 kB
-    large = treebank_file(LINE * 16000, "large.trees")  # about 1.3 MB
+    small = treebank_file(LINE * 8_000, "small.trees")  # about 650 kB
+    large = treebank_file(LINE * 32_000, "large.trees")  # about 2.6 MB
+    _peak_bytes_while_iterating(iter_trees, small)  # warm: kernels loaded or compiled
     count_small, peak_small = _peak_bytes_while_iterating(iter_trees, small)
     count_large, peak_large = _peak_bytes_while_iterating(iter_trees, large)
-    assert (count_small, count_large) == (4000, 16000)
+    assert (count_small, count_large) == (8_000, 32_000)
     assert peak_large < 1.2 * peak_small, (peak_small, peak_large)  # four times the file, the same memory
-    assert peak_small < 24 * 8192, peak_small  # the scanner's arrays for a block and a half of text
+    assert peak_large < 2_000_000, peak_large  # word tables, and the scanners' arrays of the blocks in flight
 
 
 def test_progress_reports_every_line_read(treebank_file, monkeypatch):

@@ -56,10 +56,8 @@ class _BankBuilder:
         self.start.append(np.zeros(1, dtype=np.int64))
         self.n_nodes = 0
 
-    def append(self, block: TreeBlock, word_ids: np.ndarray) -> None:
-        """``word_ids`` (W_block,) int32: the id stored for each word of ``block.words``."""
-        word = np.full(block.n_nodes, -1, dtype=np.int32)
-        word[block.left < 0] = word_ids[block.leaf_word]  # leaves come in node order
+    def append(self, block: TreeBlock, word: np.ndarray) -> None:
+        """``word`` (N,) int32: the id stored for each node of ``block`` (-1 at internal nodes)."""
         self.word.append(word)
         self.left.append(block.left)
         self.right.append(block.right)
@@ -72,6 +70,22 @@ class _BankBuilder:
         child = CHILD_DTYPES[max(CHILD_DTYPES.index(left.dtype.type), CHILD_DTYPES.index(right.dtype.type))]
         return EncodedTreebank(self.word.finish(), left.astype(child, copy=False), right.astype(child, copy=False),
                                self.label.finish(), self.start.finish())
+
+
+class _VocabularyIds:
+    """Vocabulary id of each word of a file's growing word list, with -1 after the last (for internal nodes)."""
+
+    def __init__(self, vocabulary: Vocabulary) -> None:
+        self.vocabulary = vocabulary
+        self.ids = np.full(1, -1, dtype=np.int32)
+
+    def of(self, block: TreeBlock) -> np.ndarray:
+        """(N,) int32 vocabulary id of each node of ``block``, -1 at internal nodes."""
+        known = self.ids.shape[0] - 1
+        if len(block.words) > known:
+            new = self.vocabulary.ids(block.words[known:])
+            self.ids = np.concatenate([self.ids[:-1], new, [-1]]).astype(np.int32)
+        return np.take(self.ids, block.token)
 
 
 def _capacity(path: str | os.PathLike) -> int:
@@ -90,27 +104,37 @@ def read_treebank_words(
 ) -> tuple[EncodedTreebank, FileWords]:
     """The file as a bank whose ``word`` column indexes the file's own words, and those words with counts."""
     builder = _BankBuilder(_capacity(path))
-    index: dict[str, int] = {}
-    counts = ColumnBuilder((np.int64,))
+    counts = np.zeros(0, dtype=np.int64)
+    words: list[str] = []
     for block in iter_tree_blocks(path, num_classes=num_classes, binarise=binarise, progress=progress):
-        known = len(index)
-        ids = np.fromiter((index.setdefault(w, len(index)) for w in block.words), dtype=np.int32,
-                          count=len(block.words))
-        counts.append(np.zeros(len(index) - known, dtype=np.int64))
-        np.add.at(counts.array, ids, block.word_counts())  # two tokens may unescape to one word
-        builder.append(block, ids)
-    return builder.finish(), FileWords(list(index), counts.finish())
+        words = block.words
+        more = block.word_counts()
+        if more.shape[0] > counts.shape[0]:
+            counts = np.concatenate([counts, np.zeros(more.shape[0] - counts.shape[0], dtype=np.int64)])
+        counts += more
+        builder.append(block, block.token)
+    bank = builder.finish()
+    unique: dict[str, int] = {}
+    first = np.fromiter((unique.setdefault(w, len(unique)) for w in words), dtype=np.int32, count=len(words))
+    if len(unique) < len(words):  # two tokens (such as '{' and -LCB-) stand for one word: one id for both
+        bank = _remap_words(bank, first)
+        counts = np.bincount(first, weights=counts, minlength=len(unique)).astype(np.int64)
+    return bank, FileWords(list(unique), counts)
 
 
-def apply_vocabulary(bank: EncodedTreebank, words: FileWords, vocabulary: Vocabulary) -> EncodedTreebank:
-    """Turn the file-word indices of ``bank.word`` (from :func:`read_treebank_words`) into vocabulary ids, in place."""
-    ids = vocabulary.ids(words.words)
+def _remap_words(bank: EncodedTreebank, ids: np.ndarray) -> EncodedTreebank:
+    """``bank`` with every leaf's word index i replaced by ``ids[i]``, in place."""
     word = bank.word
     for a in range(0, word.shape[0], REMAP_CHUNK):
         piece = word[a : a + REMAP_CHUNK]
         leaves = piece >= 0
         piece[leaves] = ids[piece[leaves]]
     return bank
+
+
+def apply_vocabulary(bank: EncodedTreebank, words: FileWords, vocabulary: Vocabulary) -> EncodedTreebank:
+    """Turn the file-word indices of ``bank.word`` (from :func:`read_treebank_words`) into vocabulary ids, in place."""
+    return _remap_words(bank, vocabulary.ids(words.words))
 
 
 def read_encoded_treebank(
@@ -123,8 +147,9 @@ def read_encoded_treebank(
 ) -> EncodedTreebank:
     """The whole file encoded with a known vocabulary."""
     builder = _BankBuilder(_capacity(path))
+    ids = _VocabularyIds(vocabulary)
     for block in iter_tree_blocks(path, num_classes=num_classes, binarise=binarise, progress=progress):
-        builder.append(block, vocabulary.ids(block.words))
+        builder.append(block, ids.of(block))
     return builder.finish()
 
 
@@ -137,7 +162,8 @@ def iter_encoded_blocks(
     progress: Callable[[int], None] | None = None,
 ) -> Iterator[EncodedTreebank]:
     """The file as a sequence of small banks, one per block of the reader: memory bounded by a block."""
+    ids = _VocabularyIds(vocabulary)
     for block in iter_tree_blocks(path, num_classes=num_classes, binarise=binarise, progress=progress):
         builder = _BankBuilder(block.n_nodes)
-        builder.append(block, vocabulary.ids(block.words))
+        builder.append(block, ids.of(block))
         yield builder.finish()
