@@ -196,7 +196,8 @@ def make_batch(bank: EncodedTreebank, tree_ids: np.ndarray) -> FlatBatch:
 
 
 @njit(cache=True, nogil=True)
-def _phrase_lengths(left: np.ndarray, right: np.ndarray, start: np.ndarray) -> np.ndarray:
+def phrase_lengths_of(left: np.ndarray, right: np.ndarray, start: np.ndarray) -> np.ndarray:
+    """(N,) int32 words under each node of trees laid end to end (``start`` (T + 1,) their first nodes)."""
     n_words = np.empty(left.shape[0], dtype=np.int32)
     for t in range(start.shape[0] - 1):
         a = start[t]
@@ -210,7 +211,7 @@ def _phrase_lengths(left: np.ndarray, right: np.ndarray, start: np.ndarray) -> n
 
 def phrase_lengths(bank: EncodedTreebank) -> np.ndarray:
     """(total_nodes,) int32: number of words under each node (children come before parents)."""
-    return _phrase_lengths(bank.left, bank.right, bank.start)
+    return phrase_lengths_of(bank.left, bank.right, bank.start)
 
 
 def bank_slice(bank: EncodedTreebank, a: int, z: int) -> EncodedTreebank:
