@@ -20,8 +20,8 @@ measures, with the file in the page cache:
     command's wall time, and its peak RSS.
 
 Commands run as `python -m rntn_engine.cli.app ...` with this interpreter; the kernel
-cache is warmed by a small run first. Peak RSS comes from wait4's ru_maxrss of each
-command's own process.
+cache is warmed by a small run first. Peak RSS is each command's own VmHWM, written at its
+exit (after SIGTERM for train and resume, so it includes the checkpoint written then).
 
 Usage:  python scripts/bench_treebank.py [--trees 100000 1000000] [--corpus-dir DIR] [--json]
 The machine is shared: quote medians, and compare ratios measured in one run.
@@ -113,17 +113,41 @@ def exact_slice(path: Path, megabytes: float, tmp: Path) -> Path:
     return out
 
 
+# Runs the command line in this process image and, at exit, writes its peak resident memory (VmHWM of
+# /proc/self/status) to the file named by RNTN_BENCH_PEAK_FILE. Unlike getrusage's ru_maxrss, which a
+# child inherits from its parent across fork and exec, VmHWM belongs to the command's process alone.
+PEAK_WRAPPER = """
+import atexit, os, runpy, sys
+def _peak():
+    with open("/proc/self/status") as status:
+        line = next(l for l in status if l.startswith("VmHWM:"))
+    with open(os.environ["RNTN_BENCH_PEAK_FILE"], "w") as out:
+        out.write(str(int(line.split()[1]) * 1024))
+atexit.register(_peak)
+sys.argv = ["rntn"] + sys.argv[1:]
+runpy.run_module("rntn_engine.cli.app", run_name="__main__")
+"""
+
+
 def app(*args: str) -> list[str]:
-    return [sys.executable, "-m", "rntn_engine.cli.app", *args]
+    return [sys.executable, "-c", PEAK_WRAPPER, *args]
 
 
-def wait_rusage(proc: subprocess.Popen, block: bool = True) -> tuple[int, int] | None:
-    """(exit code, peak RSS in bytes) of a finished child, from wait4; None if it still runs (block=False)."""
-    pid, status, usage = os.wait4(proc.pid, 0 if block else os.WNOHANG)
-    if pid == 0:
+def start(command: list[str], peak_file: Path, **popen) -> subprocess.Popen:
+    peak_file.unlink(missing_ok=True)
+    return subprocess.Popen(command, env={**os.environ, "RNTN_BENCH_PEAK_FILE": str(peak_file)}, **popen)
+
+
+def peak_rss(peak_file: Path) -> int | None:
+    try:
+        return int(peak_file.read_text())
+    except (OSError, ValueError):
         return None
-    proc.returncode = os.waitstatus_to_exitcode(status)
-    return proc.returncode, usage.ru_maxrss * 1024
+
+
+def wait_exit(proc: subprocess.Popen, block: bool = True) -> int | None:
+    """The exit code of a child, or None if it still runs (block=False)."""
+    return proc.wait() if block else proc.poll()
 
 
 def step_in_progress(run_dir: Path) -> int:
@@ -133,25 +157,27 @@ def step_in_progress(run_dir: Path) -> int:
         return -1
 
 
-def time_to_step(command: list[str], run_dir: Path, after_step: int, train_seconds: float,
+def time_to_step(command: list[str], run_dir: Path, after_step: int, train_seconds: float, tmp: Path,
                  timeout: float = 3600) -> dict:
     """Start ``command``; seconds until progress.json shows a step beyond ``after_step``; train on for
-    ``train_seconds``; SIGTERM; the run's step and the process's peak RSS."""
+    ``train_seconds``; SIGTERM; the run's step and the command's peak RSS."""
+    peak_file = tmp / "peak-rss"
     t0 = time.perf_counter()
-    proc = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    proc = start(command, peak_file, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     first = None
     while time.perf_counter() - t0 < timeout:
         if step_in_progress(run_dir) > after_step:
             first = time.perf_counter() - t0
             break
-        ended = wait_rusage(proc, block=False)
-        if ended is not None:
-            raise RuntimeError(f"{' '.join(command)} ended with exit code {ended[0]} before its first step")
+        code = wait_exit(proc, block=False)
+        if code is not None:
+            raise RuntimeError(f"{' '.join(command)} ended with exit code {code} before its first step")
         time.sleep(0.01)
     time.sleep(train_seconds)
     proc.send_signal(signal.SIGTERM)
-    code, peak = wait_rusage(proc)
-    return {"first_step_seconds": first, "peak_rss_bytes": peak, "exit_code": code, "step": step_in_progress(run_dir)}
+    code = wait_exit(proc)
+    return {"first_step_seconds": first, "peak_rss_bytes": peak_rss(peak_file), "exit_code": code,
+            "step": step_in_progress(run_dir)}
 
 
 def bench_size(path: Path, args, tmp: Path) -> dict:
@@ -174,20 +200,22 @@ def bench_size(path: Path, args, tmp: Path) -> dict:
         return result
     run_dir = tmp / f"run-{result['trees']}"
     train = time_to_step(app("train", "--train-file", str(path), "--dim", str(args.dim), "--epochs", "100",
-                             "--run-dir", str(run_dir), "--no-progress"), run_dir, 0, args.train_seconds)
+                             "--run-dir", str(run_dir), "--no-progress"), run_dir, 0, args.train_seconds, tmp)
     result["train"] = train
-    resume = time_to_step(app("resume", str(run_dir), "--no-progress"), run_dir, train["step"], args.train_seconds)
+    resume = time_to_step(app("resume", str(run_dir), "--no-progress"), run_dir, train["step"], args.train_seconds,
+                          tmp)
     result["resume"] = resume
     checkpoints = sorted(run_dir.glob("checkpoint-step*.h5"))
     t0 = time.perf_counter()
-    proc = subprocess.Popen(app("evaluate", str(checkpoints[-1]), "-t", str(path), "--jobs", "1", "--json",
-                                "--no-progress"), stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    proc = start(app("evaluate", str(checkpoints[-1]), "-t", str(path), "--jobs", "1", "--json", "--no-progress"),
+                 tmp / "peak-rss", stdout=subprocess.PIPE, stderr=subprocess.DEVNULL)
     out = proc.stdout.read()
-    code, peak = wait_rusage(proc)
+    code = wait_exit(proc)
     seconds = time.perf_counter() - t0
     rows = json.loads(out)
     result["evaluate"] = {"seconds": seconds, "trees_per_second": rows[0]["trees"] / seconds,
-                          "peak_rss_bytes": peak, "exit_code": code, "fine_all": rows[0]["fine_all"]}
+                          "peak_rss_bytes": peak_rss(tmp / "peak-rss"), "exit_code": code,
+                          "fine_all": rows[0]["fine_all"]}
     return result
 
 
