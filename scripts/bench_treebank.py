@@ -15,7 +15,9 @@ measures, with the file in the page cache:
   * `rntn train` (d = --dim, in a fresh process): seconds from the command's start to
     its first training step (seen in progress.json), then --train-seconds of training,
     SIGTERM (a checkpoint), and the process's peak RSS;
-  * `rntn resume` of that run: seconds from the command's start to its first step;
+  * `rntn resume` of that run: seconds from the command's start to its first step, with the
+    run's encoded-treebank cache (treebanks of 16 MiB and more are cached), and again with the
+    cache removed, so that the resume reads the treebank text;
   * `rntn evaluate` of its checkpoint on the whole corpus (1 worker): trees/s over the
     command's wall time, and its peak RSS.
 
@@ -33,6 +35,7 @@ import argparse
 import json
 import os
 import platform
+import shutil
 import signal
 import statistics
 import subprocess
@@ -46,6 +49,7 @@ import numpy as np
 from rntn_engine.data.treebank_encoding import apply_vocabulary, read_treebank_words
 from rntn_engine.data.treebank_reader import iter_trees, iter_trees_exact
 from rntn_engine.data.vocabulary import vocabulary_from_counts
+from rntn_engine.run.trainer import TREEBANK_CACHE_DIR
 
 MB = 1e6
 
@@ -205,6 +209,12 @@ def bench_size(path: Path, args, tmp: Path) -> dict:
     resume = time_to_step(app("resume", str(run_dir), "--no-progress"), run_dir, train["step"], args.train_seconds,
                           tmp)
     result["resume"] = resume
+    cache = run_dir / TREEBANK_CACHE_DIR
+    result["cache_megabytes"] = sum(f.stat().st_size for f in cache.rglob("*") if f.is_file()) / MB \
+        if cache.is_dir() else 0.0
+    shutil.rmtree(cache, ignore_errors=True)  # the same resume, reading the treebank text (and caching it again)
+    result["resume_reading_text"] = time_to_step(app("resume", str(run_dir), "--no-progress"), run_dir,
+                                                 resume["step"], args.train_seconds, tmp)
     checkpoints = sorted(run_dir.glob("checkpoint-step*.h5"))
     t0 = time.perf_counter()
     proc = start(app("evaluate", str(checkpoints[-1]), "-t", str(path), "--jobs", "1", "--json", "--no-progress"),
@@ -266,15 +276,17 @@ def print_table(result: dict) -> None:
     m = result["machine"]
     print(f"# {result['command']}  ({m['date']}, {m['cpus']} cpus, Python {m['python']}, NumPy {m['numpy']})")
     header = ["trees", "nodes", "MB", "read MB/s", "iter_trees MB/s", "exact MB/s", "bytes/node",
-              "train: first step s", "train peak RSS MB", "resume: first step s", "evaluate trees/s", "eval peak RSS MB"]
+              "train: first step s", "train peak RSS MB", "resume: first step s", "resume, text: first step s",
+              "evaluate trees/s", "eval peak RSS MB"]
     rows = []
     for s in result["sizes"]:
         train, resume, evaluate = s.get("train", {}), s.get("resume", {}), s.get("evaluate", {})
+        text = s.get("resume_reading_text", {})
         rows.append([f"{s['trees']:,}", f"{s['nodes']:,}", f"{s['megabytes']:.1f}",
                      f"{s['read_for_training_mb_per_s']:.1f}", f"{s['iter_trees_mb_per_s']:.1f}",
                      f"{s['exact_reader_mb_per_s']:.1f}", f"{s['bank_bytes_per_node']:.2f}",
                      _fmt(train.get("first_step_seconds"), "{:.2f}"), _fmt(train.get("peak_rss_bytes"), "{:.0f}", 1e-6),
-                     _fmt(resume.get("first_step_seconds"), "{:.2f}"),
+                     _fmt(resume.get("first_step_seconds"), "{:.2f}"), _fmt(text.get("first_step_seconds"), "{:.2f}"),
                      _fmt(evaluate.get("trees_per_second"), "{:,.0f}"),
                      _fmt(evaluate.get("peak_rss_bytes"), "{:.0f}", 1e-6)])
     widths = [max(len(str(r[i])) for r in rows + [header]) for i in range(len(header))]
