@@ -11,6 +11,7 @@ from typing import Annotated, Optional
 import typer
 from tqdm import tqdm
 
+import rntn_engine.kernels  # noqa: F401  guards numba's on-disk cache, which also holds the treebank scanner
 from rntn_engine.cli.tables import format_count, format_number, format_share, render_pairs, render_table
 from rntn_engine.data.treebank_bulk import iter_tree_blocks
 from rntn_engine.data.treebank_stats import LabelDistribution, StatsAccumulator, TreebankStats
