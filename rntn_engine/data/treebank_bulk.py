@@ -1,16 +1,20 @@
 """Read a treebank file in blocks: the bulk scanner where it can, the exact reader where it cannot.
 
-Legend: per block, N nodes, L leaves, T trees, W words (distinct within a scanned block).
+Legend: per block, N nodes, L leaves, T trees; W words of the file so far.
 
-A block is about :data:`BLOCK_BYTES` of the file cut at a line end. The numba scanner
-(treebank_scan.py) reads every tree of the block into flat arrays at once; words
-stay bytes until the end, when each distinct one is decoded once. Where the scanner
-stops -- at bad input, or a rare form it leaves alone -- the exact reader
-(treebank_reader.py) reads that one record from the same bytes and file, then the
-scanner goes on after it. So errors carry the exact reader's FILE:LINE:COL, and
-the trees are the same as the exact reader's (tests/test_treebank_bulk.py).
+A block is about :data:`BLOCK_BYTES` of the file, cut just before a line that starts with
+``(`` (a record always starts there, so blocks can be scanned independently, up to
+:data:`SCAN_THREADS` at once), or at a line end when no such line is near (then the next
+block waits for this one). The numba scanner (treebank_scan.py) reads every tree of a
+block into flat arrays at once, with its own word table; in file order, each block's
+words are merged into the file's word table (ids in order of first appearance) and the
+new ones decoded. Where the scanner stops -- at bad input, or a rare form it leaves
+alone -- the exact reader (treebank_reader.py) reads that one record from the same bytes
+and file, then the scanner goes on after it. So errors carry the exact reader's
+FILE:LINE:COL, and the trees are the same as the exact reader's
+(tests/test_treebank_bulk.py).
 
-Memory is bounded by a block (and by the longest tree), not by the file.
+Memory is bounded by the blocks in flight (and by the longest tree), not by the file.
 """
 
 from __future__ import annotations
