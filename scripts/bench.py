@@ -9,8 +9,8 @@ labelled), then for each vector size, dtype and thread count measures:
   * training throughput: internal nodes/s, trees/s, seconds per epoch (minibatches of
     --batch-size trees, AdaGrad step included), median of --repeats timed passes;
   * forward-only (evaluation) throughput, trees/s;
-  * effective GFLOP/s = 24 d^3 x internal nodes / seconds (the nominal count of
-    DESIGN.md: about 4d^3 multiply-adds forward and 8d^3 backward for the tensor,
+  * effective GFLOP/s = 24 d^3 x internal nodes / seconds (the nominal count:
+    about 4d^3 multiply-adds forward and 8d^3 backward for the tensor,
     2 flops each; everything O(d^2) is ignored);
   * NumPy's dense matrix-multiply GFLOP/s (2 n^3 / s, n = --matmul-size, same dtype and
     thread count) and the ratio effective / matmul;
@@ -48,12 +48,12 @@ from rntn_engine.data.treebank_writer import write_trees
 from rntn_engine.data.vocabulary import build_vocabulary
 from rntn_engine.model.adagrad import AdaGrad
 from rntn_engine.model.objective import TreeModelObjective, split_into_chunks
-from rntn_engine.model.parameters import ModelShape, init_parameters
+from rntn_engine.model.parameters import Gradient, ModelShape, init_parameters
 from rntn_engine.run.checkpoints import load_checkpoint, save_checkpoint
 from rntn_engine.run.evaluation import predict_treebank
 from rntn_engine.run.run_config import TrainConfig
 
-NOMINAL_FLOPS_PER_NODE = 24  # x d^3, per internal node per training step (DESIGN.md)
+NOMINAL_FLOPS_PER_NODE = 24  # x d^3, per internal node per training step (module docstring)
 
 
 def synthetic_treebank(path: Path, n_trees: int, vocab_size: int, seed: int) -> None:
@@ -100,7 +100,7 @@ def timed(fn, repeats: int) -> tuple[float, float]:
 def bench_setting(bank, vocab_size: int, dim: int, dtype: str, threads: int, args) -> dict:
     shape = ModelShape("rntn", vocab_size, dim, 5, dtype)
     params = init_parameters(shape, np.random.default_rng(0))
-    grads = params.zeros_like()
+    grads = Gradient(params.shape)
     objective = TreeModelObjective(params, threads=threads)
     optimiser = AdaGrad(params, 0.01)
     order = np.random.default_rng(1).permutation(bank.n_trees)
@@ -145,14 +145,14 @@ import numpy as np
 from rntn_engine.data.treebank_reader import read_trees
 from rntn_engine.data.vocabulary import build_vocabulary
 from rntn_engine.data.batches import encode_treebank
-from rntn_engine.model.parameters import ModelShape, init_parameters
+from rntn_engine.model.parameters import Gradient, ModelShape, init_parameters
 from rntn_engine.model.objective import TreeModelObjective, split_into_chunks
 from rntn_engine.model.adagrad import AdaGrad
 trees = read_trees(sys.argv[1])[:200]
 vocab = build_vocabulary(trees, min_count=1)
 bank = encode_treebank(trees, vocab)
 params = init_parameters(ModelShape("rntn", len(vocab), int(sys.argv[2]), 5, sys.argv[3]), np.random.default_rng(0))
-grads = params.zeros_like()
+grads = Gradient(params.shape)
 objective = TreeModelObjective(params)
 objective.loss_and_gradient(params, grads, split_into_chunks(bank, np.arange(27), 2))
 AdaGrad(params, 0.01).step(params, grads)

@@ -7,11 +7,26 @@ from random_trees import engine_case
 
 from rntn_engine.model.adagrad import AdaGrad
 from rntn_engine.model.objective import TreeModelObjective
-from rntn_engine.model.parameters import ModelShape, Parameters
+from rntn_engine.model.parameters import Gradient, ModelShape, Parameters
+
+
+def filled_gradient(shape, value):
+    """A gradient holding ``value`` everywhere: every dense element and every word row."""
+    grads = Gradient(shape)
+    grads.flat[:] = value
+    for rows in grads.rows.values():
+        rows.reset(np.arange(shape.vocab_size))
+        rows.values[:] = value
+    return grads
+
+
+def gradient_bits(grads):
+    """Every number a gradient holds, and the word rows it covers, as one comparable tuple."""
+    return (grads.flat.tobytes(),) + tuple((r.rows.tobytes(), r.values.tobytes()) for r in grads.rows.values())
 
 
 def test_adagrad_matches_hand_computed_steps():
-    # Published rule (Duchi, Hazan & Singer 2011, diagonal form): G += g^2; theta -= lr g / (sqrt(G) + eps).
+    # Published rule (AdaGrad, 2011, diagonal form): G += g^2; theta -= lr g / (sqrt(G) + eps).
     # Expected values computed here by hand, lr = 0.1, eps = 0 (no source beyond the rule itself):
     #   theta0 = 1.0, gradients 2, then 1, then -2
     #   step 1: G = 4,  theta = 1 - 0.1 * 2 / 2           = 0.9
@@ -20,10 +35,8 @@ def test_adagrad_matches_hand_computed_steps():
     shape = ModelShape("rnn", 1, 1, 2, "float64")  # 1 + 2 + 1 + 2 + 2 = 8 scalars
     params = Parameters(shape, np.ones(shape.count()))
     opt = AdaGrad(params, lr=0.1, eps=0.0)
-    grads = params.zeros_like()
     for g, expected in [(2.0, 0.9), (1.0, 0.855278640450004), (-2.0, 0.921945307116671)]:
-        grads.flat[:] = g
-        opt.step(params, grads)
+        opt.step(params, filled_gradient(shape, g))
         np.testing.assert_allclose(params.flat, expected, rtol=1e-14)
     np.testing.assert_allclose(opt.sums.flat, 9.0)
     opt.reset()
@@ -33,9 +46,7 @@ def test_adagrad_matches_hand_computed_steps():
 def test_adagrad_frozen_group_is_not_updated():
     shape = ModelShape("rnn", 3, 2, 2, "float64")
     params = Parameters(shape, np.ones(shape.count()))
-    grads = params.zeros_like()
-    grads.flat[:] = 1.0
-    AdaGrad(params, lr=0.1, frozen=("L",)).step(params, grads)
+    AdaGrad(params, lr=0.1, frozen=("L",)).step(params, filled_gradient(shape, 1.0))
     assert np.all(params.L == 1.0) and np.all(params.W < 1.0)
 
 
@@ -46,21 +57,21 @@ def test_gradient_bits_do_not_depend_on_thread_count(model, dtype):
     for threads in (1, 2):
         params, _, chunks, _, _ = engine_case(model, dtype, dim=5, grad_chunks=3)
         objective = TreeModelObjective(params, threads=threads)
-        grads = params.zeros_like()
+        grads = Gradient(params.shape)
         loss = objective.loss_and_gradient(params, grads, chunks)
         objective.close()
-        results.append((loss, grads.flat.copy()))
+        results.append((loss, gradient_bits(grads)))
     assert results[0][0] == results[1][0]
-    assert np.array_equal(results[0][1], results[1][1])
+    assert results[0][1] == results[1][1]
 
 
 def test_repeated_evaluation_is_bitwise_identical():
     params, _, chunks, _, _ = engine_case("rntn", "float32", dim=5)
     objective = TreeModelObjective(params)
-    first, second = params.zeros_like(), params.zeros_like()
+    first, second = Gradient(params.shape), Gradient(params.shape)
     a = objective.loss_and_gradient(params, first, chunks)
     b = objective.loss_and_gradient(params, second, chunks)
-    assert a == b and np.array_equal(first.flat, second.flat)
+    assert a == b and gradient_bits(first) == gradient_bits(second)
 
 
 @pytest.mark.parametrize("dtype", ["float32", "float64"])
@@ -71,7 +82,7 @@ def test_fused_l2_step_equals_gradient_with_l2_then_step(dtype):
     params, _, chunks, _, _ = engine_case("rntn", dtype, dim=4)
     twin = params.copy()
     a, b = AdaGrad(params, 0.05), AdaGrad(twin, 0.05)
-    grads, grads_twin = params.zeros_like(), twin.zeros_like()
+    grads, grads_twin = Gradient(params.shape), Gradient(twin.shape)
     for _ in range(3):
         full = TreeModelObjective(params, l2).loss_and_gradient(params, grads, chunks)
         a.step(params, grads)
@@ -79,7 +90,7 @@ def test_fused_l2_step_equals_gradient_with_l2_then_step(dtype):
         penalty = b.step_with_l2(twin, grads_twin, l2)
         assert np.array_equal(params.flat, twin.flat) and np.array_equal(a.sums.flat, b.sums.flat)
         assert data + penalty == pytest.approx(full, rel=1e-12)
-        assert not grads_twin.flat.any()  # the fused pass leaves the gradient zeroed
+        assert not grads_twin.flat.any() and not grads_twin.rows["L"].values.any()  # the fused pass zeroes it
 
 
 def test_fused_step_flushes_subnormal_parameters_to_zero():
@@ -89,5 +100,5 @@ def test_fused_step_flushes_subnormal_parameters_to_zero():
     params = Parameters(shape, np.full(shape.count(), 1e-39, dtype=np.float32))  # subnormal in float32
     params.W[0, 0] = 0.5
     opt = AdaGrad(params, lr=1e-45)  # a step far too small to move anything
-    opt.step_with_l2(params, params.zeros_like(), L2Strengths(0, 0, 0, 0))
+    opt.step_with_l2(params, filled_gradient(shape, 0.0), L2Strengths(0, 0, 0, 0))  # every row touched
     assert params.W[0, 0] == np.float32(0.5) and np.count_nonzero(params.flat) == 1

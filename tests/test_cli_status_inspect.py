@@ -52,13 +52,16 @@ def test_status_of_finished_run_and_inspect(tmp_path, capsys):
     assert main(["status", str(run_dir)]) == 0
     out = capsys.readouterr().out
     assert "finished (all epochs done)" in out and "step 12 of 12 (100.0%)" in out
-    assert main(["inspect", str(run_dir / "model.h5")]) == 0
+    last = run_dir / "checkpoint-step000000012.h5"
+    assert main(["inspect", str(last)]) == 0
     out = capsys.readouterr().out
     assert "all 19 datasets verified" in out and "rntn, d=4, C=5" in out and "finished at step 12" in out
     assert "train_file" in out and "epoch  step  train loss" in out
-    assert main(["inspect", str(run_dir / "model.h5"), "--json"]) == 0
+    assert main(["inspect", str(last), "--json"]) == 0
     info = json.loads(capsys.readouterr().out)
     assert info["state"]["step"] == 12 and len(info["metrics"]) == 2 and info["has_optimiser_state"]
+    assert main(["inspect", str(run_dir / "model.h5"), "--json"]) == 0  # the best checkpoint (the default)
+    assert json.loads(capsys.readouterr().out)["role"] == "a run's final model: its best checkpoint"
 
 
 def test_inspect_reports_damage_and_exits_1(tmp_path, capsys):

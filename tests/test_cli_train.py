@@ -8,6 +8,8 @@ import pytest
 from demo_slices import write_demo_slices
 from rntn_engine.cli.app import main
 from rntn_engine.run.checkpoints import load_checkpoint
+from rntn_engine.run.run_config import TrainConfig
+from rntn_engine.run.run_directory import list_checkpoints
 
 DEMO = Path(__file__).resolve().parents[1] / "data_demo"
 
@@ -29,7 +31,9 @@ def test_train_writes_model_config_and_metrics(small_treebanks, tmp_path, capsys
     ckpt = load_checkpoint(run_dir / "model.h5")
     assert ckpt.config.dim == 6 and ckpt.config.model == "rntn"
     assert ckpt.params.V.shape == (6, 12, 12)
-    assert ckpt.state["step"] == 2 * -(-150 // 27)
+    last = load_checkpoint(list_checkpoints(run_dir)[-1].path)
+    assert last.state["step"] == 2 * -(-150 // TrainConfig().batch_size) and last.state["finished"]
+    assert ckpt.state["step"] == load_checkpoint(run_dir / "best.h5").state["step"]  # model.h5: the best
 
 
 def test_same_settings_give_bit_identical_models_whatever_the_threads(small_treebanks, tmp_path):

@@ -87,7 +87,7 @@ def test_writing_an_entry_removes_stale_ones_and_leftovers_but_not_other_names(t
     old, new = cache_key("ab" * 32, "right", 5, vocabulary), cache_key("cd" * 32, "right", 5, vocabulary)
     store_cached_bank(cache, "train", old, bank)
     store_cached_bank(cache, "dev", old, bank)
-    leftover = cache / f".train-{new[:32]}.999999.tmp"
+    leftover = cache / f".train-{new[:32]}.999999.rntn-tmp"
     leftover.mkdir()
     unrelated = cache / "notes.txt"
     unrelated.write_text("mine", encoding="utf-8")

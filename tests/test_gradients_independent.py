@@ -1,7 +1,7 @@
-"""Proofs of the hand-written gradients, per parameter group, for both models.
+"""Proofs of the hand-written gradients, per parameter group, for the RNN and the RNTN.
 
 1. Central finite differences of our own objective, float64: relative error < 1e-6.
-2. An independent autodiff library -- the `autograd` package (HIPS, Maclaurin et al.) --
+2. An independent autodiff library -- the `autograd` package (HIPS) --
    differentiates an objective written here from the equations alone (no code of
    ours but the tree arrays): loss equal to 1e-12 relative, every gradient to 1e-9.
 """
@@ -15,6 +15,7 @@ from random_trees import engine_case
 
 from rntn_engine.model.gradient_check import finite_difference_errors
 from rntn_engine.model.objective import L2Strengths, TreeModelObjective
+from rntn_engine.model.parameters import Gradient
 
 L2 = L2Strengths(words=1e-3, compose=2e-3, tensor=3e-3, classifier=4e-3)
 
@@ -37,25 +38,36 @@ def test_gradient_matches_central_finite_differences(model, seed):
 def test_finite_differences_catch_a_wrong_gradient():
     params, _, chunks, _, _ = engine_case("rntn", "float64", dim=3, param_scale=2.0)
     objective = TreeModelObjective(params, L2)
-    wrong = params.zeros_like()
+    wrong = Gradient(params.shape)
     objective.loss_and_gradient(params, wrong, chunks)
     wrong.V[0, 1, 2] *= 1.01  # one element off by 1%
     errors = finite_difference_errors(objective, params, chunks, analytic=wrong)
     assert errors["V"] > 1e-4 and errors["W"] < 1e-6
 
 
-def autograd_objective(theta, tree_arrays, num_trees, l2, use_tensor):
-    """J written from the equations with autograd.numpy: per node, no in-place writes."""
+def word_row_l2(L, anchor, used, lam):
+    """lambda/2 sum over the minibatch's distinct words w of ||L[w] - anchor[w]||^2 (our objective's word term)."""
+    return 0.5 * lam * anp.sum((L[used] - anchor[used]) ** 2)
+
+
+def autograd_objective(theta, tree_arrays, tree_ids, l2, use_tensor, anchor):
+    """J written from the equations with autograd.numpy: per node, no in-place writes.
+
+    The minibatch is the trees ``tree_ids``; the word-vector L2 term covers the distinct words
+    of their leaves, pulled toward ``anchor`` (zeros: toward zero).
+    """
     L, W, b, V, Ws, bs = theta
     word, left, right, label, start = tree_arrays
     d = L.shape[1]
     total = 0.0
-    for t in range(num_trees):
+    used = set()
+    for t in tree_ids:
         nodes = []
         for i in range(int(start[t]), int(start[t + 1])):
             local = i - int(start[t])
             if left[i] < 0:
                 p = L[word[i]]
+                used.add(int(word[i]))
             else:
                 x = anp.concatenate([nodes[left[i]], nodes[right[i]]])
                 z = anp.dot(W, x) + b
@@ -67,20 +79,23 @@ def autograd_objective(theta, tree_arrays, num_trees, l2, use_tensor):
             if label[i] >= 0:
                 s = anp.dot(Ws, p) + bs
                 total = total - (s[label[i]] - anp.log(anp.sum(anp.exp(s - anp.max(s)))) - anp.max(s))
-    reg = 0.5 * (l2.words * anp.sum(L ** 2) + l2.compose * anp.sum(W ** 2) + l2.classifier * anp.sum(Ws ** 2))
+    reg = word_row_l2(L, anchor, np.array(sorted(used)), l2.words)
+    reg = reg + 0.5 * (l2.compose * anp.sum(W ** 2) + l2.classifier * anp.sum(Ws ** 2))
     if use_tensor:
         reg = reg + 0.5 * l2.tensor * anp.sum(V ** 2)
-    return total / num_trees + reg
+    return total / len(tree_ids) + reg
 
 
-def autograd_reference(params, bank, use_tensor):
+def autograd_reference(params, bank, use_tensor, tree_ids=None, anchor=None):
     """(loss, {name: gradient}) from autograd (HIPS), in float64, on copies of our parameters."""
     as64 = lambda a: np.array(a, dtype=np.float64)
     V = as64(params.V) if use_tensor else np.zeros((1, 1, 1))
     theta = (as64(params.L), as64(params.W), as64(params.b), V, as64(params.Ws), as64(params.bs))
     tree_arrays = (bank.word, bank.left, bank.right, bank.label, bank.start)
-    loss = autograd_objective(theta, tree_arrays, bank.n_trees, L2, use_tensor)
-    grads = autograd.grad(autograd_objective)(theta, tree_arrays, bank.n_trees, L2, use_tensor)
+    tree_ids = list(range(bank.n_trees)) if tree_ids is None else list(tree_ids)
+    anchor = np.zeros_like(theta[0]) if anchor is None else as64(anchor)
+    loss = autograd_objective(theta, tree_arrays, tree_ids, L2, use_tensor, anchor)
+    grads = autograd.grad(autograd_objective)(theta, tree_arrays, tree_ids, L2, use_tensor, anchor)
     named = dict(zip(["L", "W", "b", "V", "Ws", "bs"], grads))
     if not use_tensor:
         del named["V"]
@@ -91,14 +106,14 @@ def autograd_reference(params, bank, use_tensor):
 @pytest.mark.parametrize("seed", [0, 5])
 def test_gradient_matches_autograd_library(model, seed):
     params, bank, chunks, _, _ = engine_case(model, "float64", dim=3, seed=seed, param_scale=2.0)
-    grads = params.zeros_like()
+    grads = Gradient(params.shape)
     loss = TreeModelObjective(params, L2).loss_and_gradient(params, grads, chunks)
     # Independent reference: autograd (HIPS) differentiates the equations written above.
     ref_loss, ref_grads = autograd_reference(params, bank, model == "rntn")
     assert abs(loss - ref_loss) / abs(ref_loss) < 1e-12
     assert set(ref_grads) == set(params.names())
     for name, ref in ref_grads.items():
-        err = group_relative_error(grads[name], ref)
+        err = group_relative_error(grads.dense(name), ref)
         assert err < 1e-9, f"{model} {name}: relative error {err:.2e}"
 
 
@@ -107,9 +122,9 @@ def test_float32_gradient_matches_autograd_in_float64(model):
     # float32 kernels against the same independent autograd (HIPS) objective evaluated in float64
     # on the same (float32-representable) parameters: agreement to float32 precision.
     params, bank, chunks, _, _ = engine_case(model, "float32", dim=3, seed=1, param_scale=2.0)
-    grads = params.zeros_like()
+    grads = Gradient(params.shape)
     loss = TreeModelObjective(params, L2).loss_and_gradient(params, grads, chunks)
     ref_loss, ref_grads = autograd_reference(params, bank, model == "rntn")
     assert abs(loss - ref_loss) / abs(ref_loss) < 1e-5
     for name, ref in ref_grads.items():
-        assert group_relative_error(grads[name].astype(np.float64), ref) < 1e-4, name
+        assert group_relative_error(grads.dense(name).astype(np.float64), ref) < 1e-4, name

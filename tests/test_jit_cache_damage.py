@@ -1,5 +1,5 @@
 """numba's on-disk kernel cache: damaged files recompile instead of crashing; an unwritable
-cache directory still runs (RELIABILITY.md, point 8)."""
+cache directory still runs."""
 
 import os
 import subprocess
@@ -7,9 +7,9 @@ import sys
 
 PROBE = """
 import numpy as np
-from rntn_engine.kernels.adagrad_step import adagrad_step
+from rntn_engine.kernels.adagrad_step import adagrad_l2_step
 theta = np.ones(3)
-adagrad_step(theta, np.zeros(3), np.full(3, 2.0), 0.1, 0.0)
+adagrad_l2_step(theta, np.zeros(3), np.full(3, 2.0), 0.0, 0.1, 0.0, True, 0.0)
 print(repr(float(theta[0])))
 """
 

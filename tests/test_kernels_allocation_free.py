@@ -16,7 +16,8 @@ from random_trees import engine_case
 from rntn_engine.model.objective import TreeModelObjective, split_into_chunks
 params, bank, chunks, full, _ = engine_case("{model}", "float64", dim=4)
 objective = TreeModelObjective(params)
-grads = params.zeros_like()
+from rntn_engine.model.parameters import Gradient
+grads = Gradient(params.shape)
 counts = []
 for n in (2, 6, 10):
     batch = split_into_chunks(bank, np.arange(n), 1)

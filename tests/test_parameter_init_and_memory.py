@@ -4,6 +4,7 @@ import numpy as np
 import pytest
 
 from rntn_engine.model.parameters import (
+    Gradient,
     L2_GROUP,
     MemoryLimitError,
     ModelShape,
@@ -45,31 +46,36 @@ def test_word_matrices_drawn_in_blocks_equal_one_draw():
     assert np.array_equal(mv.LM, np.eye(d) + rng.uniform(-0.01, 0.01, size=(vocab, d, d)))
 
 
-def test_memory_estimate_counts_parameters_gradient_and_adagrad_sums():
-    # counted by hand from the layout: |V| d + |V| d^2 + 2 d^2 (W) + d + 2 d^2 (WM) + C d + C, three copies
+def test_memory_estimate_counts_parameters_adagrad_sums_and_the_dense_gradient():
+    # counted by hand from the layout: |V| d + |V| d^2 + 2 d^2 (W) + d + 2 d^2 (WM) + C d + C, two copies
+    # (parameters, AdaGrad sums), plus the gradient of everything but the word arrays (their gradient is
+    # the minibatch's rows only), plus one more copy of L when L2 pulls word vectors toward their start
     V, d, C = 100_000, 25, 5
-    count = V * d + V * d * d + 2 * d * d + d + 2 * d * d + C * d + C
+    dense = 2 * d * d + d + 2 * d * d + C * d + C
+    count = V * d + V * d * d + dense
     shape = ModelShape("mvrnn", V, d, C, "float32")
-    assert check_memory(shape, 0) == 3 * 4 * count  # 0: no limit
-    assert check_memory(shape, 3 * 4 * count) == 3 * 4 * count  # at the limit: allowed
+    assert check_memory(shape, 0) == 4 * (2 * count + dense)  # 0: no limit
+    assert check_memory(shape, 4 * (2 * count + dense)) == 4 * (2 * count + dense)  # at the limit: allowed
+    assert check_memory(shape, 0, anchored_words=True) == 4 * (2 * count + dense + V * d)
 
 
 def test_memory_guard_refuses_with_the_estimate_and_what_to_change():
-    shape = ModelShape("mvrnn", 100_000, 50, 5, "float32")  # 255,010,305 parameters x 3 copies x 4 bytes
+    shape = ModelShape("mvrnn", 100_000, 50, 5, "float32")  # 255,010,305 parameters, 10,305 outside L and LM
     with pytest.raises(MemoryLimitError) as caught:
-        check_memory(shape, 2 * 2**30)
+        check_memory(shape, 1.5 * 2**30)
     message = str(caught.value)
     assert isinstance(caught.value, ValueError)
-    assert "3,060,123,660" not in message and "2.85 GiB" in message  # 3,060,123,660 / 2^30 = 2.85
-    assert "2.00 GiB" in message and "255,010,305 float32 parameters" in message
+    # 4 x (2 x 255,010,305 + 10,305) = 2,040,123,660 bytes = 1.90 GiB
+    assert "2,040,123,660" not in message and "1.90 GiB" in message
+    assert "1.50 GiB" in message and "255,010,305 float32 parameters" in message
     assert "98% of them in LM (100000, 50, 50)" in message  # 250,000,000 / 255,010,305
     for hint in ("--min-count", "--dim", "--max-memory-gb"):
         assert hint in message
     assert "\n" not in message
     small = ModelShape("rntn", 1000, 25, 5, "float64")
     assert check_memory(small, 0.5 * 2**30) == small.training_bytes()
-    with pytest.raises(MemoryLimitError, match=r"743\.9 MiB .* above the limit of 512\.0 MiB"):
-        check_memory(ModelShape("mvrnn", 100_000, 25, 5, "float32"), 0.5 * 2**30)  # 780,031,860 bytes
+    with pytest.raises(MemoryLimitError, match=r"495\.9 MiB .* above the limit of 256\.0 MiB"):
+        check_memory(ModelShape("mvrnn", 100_000, 25, 5, "float32"), 0.25 * 2**30)  # 520,031,860 bytes
 
 
 def test_l2_in_blocks_equals_one_pass_and_a_step_allocates_nothing_vocabulary_sized(monkeypatch):
@@ -85,11 +91,11 @@ def test_l2_in_blocks_equals_one_pass_and_a_step_allocates_nothing_vocabulary_si
     _, _, chunks, _, _ = engine_case("mvrnn", "float64", dim=8)
     params = init_parameters(ModelShape("mvrnn", 4000, 8, 5, "float64"), np.random.default_rng(0))  # LM: 2 MiB
     l2 = L2Strengths(1e-2, 2e-2, 3e-2, 4e-2, 5e-2)
-    one_pass = params.zeros_like()
+    one_pass = Gradient(params.shape)
     loss_one_pass = TreeModelObjective(params, l2, threads=2).loss_and_gradient(params, one_pass, chunks)
     monkeypatch.setattr(objective_module, "L2_BLOCK", 1000)
     objective = TreeModelObjective(params, l2, threads=2)
-    grads = params.zeros_like()
+    grads = Gradient(params.shape)
     objective.loss_and_gradient(params, grads, chunks)  # first call grows the workspaces
     tracemalloc.start()
     loss = objective.loss_and_gradient(params, grads, chunks)
@@ -97,5 +103,7 @@ def test_l2_in_blocks_equals_one_pass_and_a_step_allocates_nothing_vocabulary_si
     tracemalloc.stop()
     objective.close()
     assert np.array_equal(grads.flat, one_pass.flat)  # elementwise: the same bits in blocks
+    for name in ("L", "LM"):  # word arrays: the minibatch's rows only
+        assert np.array_equal(grads.rows[name].values, one_pass.rows[name].values)
     assert loss == pytest.approx(loss_one_pass, rel=1e-14)  # only the summation order of the penalty differs
     assert peak < params.LM.nbytes / 8, f"a step allocated {peak} bytes; LM has {params.LM.nbytes}"

@@ -12,6 +12,7 @@ import pytest
 from demo_slices import write_demo_slices
 from rntn_engine.cli.app import main
 from rntn_engine.run.checkpoints import load_checkpoint
+from rntn_engine.run.run_config import TrainConfig
 from rntn_engine.run.run_directory import list_checkpoints, lock_is_held
 
 
@@ -72,7 +73,9 @@ def test_edited_configuration_is_refused_with_the_differing_keys(treebanks, tmp_
     run_dir = tmp_path / "run"
     assert main(train_args(treebanks, run_dir, epochs=1)) == 0
     config = (run_dir / "config.toml").read_text()
-    (run_dir / "config.toml").write_text(config.replace("dim = 4", "dim = 8").replace("lr = 0.01", "lr = 0.5"))
+    default_lr = f"lr = {TrainConfig().lr!r}"
+    assert "dim = 4" in config and default_lr in config
+    (run_dir / "config.toml").write_text(config.replace("dim = 4", "dim = 8").replace(default_lr, "lr = 0.5"))
     assert main(["resume", str(run_dir), "--epochs", "2", "--no-progress"]) == 1
     err = capsys.readouterr().err
     assert "differs from the checkpoint in lr, dim" in err or "differs from the checkpoint in dim, lr" in err
@@ -159,7 +162,7 @@ def test_early_stopping_is_recorded_and_survives_resume(treebanks, tmp_path, cap
     # lr so small that dev scores cannot improve after the first evaluation
     code = main(train_args(treebanks, run_dir, epochs=50, extra=("--patience", "2", "--lr", "1e-9")))
     assert code == 0
-    state = load_checkpoint(run_dir / "model.h5").state
+    state = load_checkpoint(list_checkpoints(run_dir)[-1].path).state
     assert state["finish_reason"] == "early stopping" and state["epoch"] == 3
     assert state["evaluations_without_improvement"] == 2
     assert main(["resume", str(run_dir), "--epochs", "60", "--no-progress"]) == 0
@@ -182,8 +185,9 @@ def test_killed_before_first_checkpoint_starts_from_the_beginning(treebanks, tmp
 def test_metrics_log_has_one_line_per_evaluation_after_interruptions(treebanks, tmp_path):
     run_dir = tmp_path / "run"
     assert main(train_args(treebanks, run_dir, epochs=3, extra=("--time-limit", "0.001s"))) == 75
-    for _ in range(20):
-        if main(["resume", str(run_dir), "--no-progress", "--time-limit", "0.05s"]) == 0:
+    # the time limit counts from the start of each command, data loading included
+    for _ in range(40):
+        if main(["resume", str(run_dir), "--no-progress", "--time-limit", "0.3s"]) == 0:
             break
     lines = [json.loads(x) for x in (run_dir / "metrics.jsonl").read_text().splitlines()]
     assert [r["epoch"] for r in lines] == [1, 2, 3]

@@ -57,3 +57,27 @@ def test_binary_accuracy_hand_example():
     probs = np.array([[.5, .2, .1, .1, .1], [.1, .1, .1, .2, .5], [.2] * 5, [.1, .1, .2, .3, .3], [.2] * 5])
     gold = np.array([0, 4, 2, 1, -1])
     assert binary_accuracy(gold, probs, LabelScheme.for_classes(5)) == pytest.approx(2 / 3)
+
+
+def test_binary_accuracy_ties_predict_the_negative_side():
+    # Worked out here by hand (the rule of the module docstring: positive only when the positive
+    # total is strictly larger). Probabilities are sums of powers of two, so every total is exact.
+    # C = 5: negative {0, 1}, neutral 2, positive {3, 4}
+    #   row 0: neg .25+.125 = .375, pos .125+.25 = .375  tie -> negative; gold 3 (positive): wrong
+    #   row 1: the same tie                                -> negative; gold 1 (negative): right
+    #   row 2: neg .125+.125 = .25, pos .125+.125 = .25   tie -> negative; gold 4 (positive): wrong
+    #   row 3: neg .0625+.0625 = .125, pos .25+.125 = .375    -> positive; gold 4 (positive): right
+    #   row 4: gold 2 (neutral): left out
+    #   -> 2 right of 4 = 0.5   (a rule that sent ties to the positive side would give 3 / 4)
+    tie = [.25, .125, .25, .125, .25]
+    probs = np.array([tie, tie, [.125, .125, .5, .125, .125], [.0625, .0625, .5, .25, .125], tie])
+    gold = np.array([3, 1, 4, 4, 2])
+    assert binary_accuracy(gold, probs, LabelScheme.for_classes(5)) == 0.5
+    # C = 2: negative {0}, positive {1}; [.5, .5] is a tie -> negative: gold 0 right, gold 1 wrong
+    even = np.array([[.5, .5], [.5, .5]])
+    assert binary_accuracy(np.array([0, 0]), even, LabelScheme.for_classes(2)) == 1.0
+    assert binary_accuracy(np.array([1, 1]), even, LabelScheme.for_classes(2)) == 0.0
+    # C = 4, no neutral: negative {0, 1}, positive {2, 3}; [.25] * 4 ties -> negative:
+    # gold 0, 1 right, gold 3 wrong -> 2 / 3   (ties to positive would give 1 / 3)
+    flat = np.full((3, 4), .25)
+    assert binary_accuracy(np.array([0, 1, 3]), flat, LabelScheme.for_classes(4)) == pytest.approx(2 / 3, abs=1e-15)

@@ -1,4 +1,5 @@
-"""Our reader against an independent one: nltk.Tree.fromstring (external check).
+"""Our reader and writer against an independent implementation: nltk.Tree.fromstring and
+nltk.Tree.pformat (external check).
 
 nltk parses the same bracket text; we then apply nltk's OWN tree transforms to
 reach the shape our reader promises: ``collapse_unary(collapsePOS=True,
@@ -134,3 +135,60 @@ def test_the_sample_covers_the_cases_it_claims():
     assert any(re.search(r"\(\S+ (\([^()]*\) ){2,}\([^()]*\)\)", t) for t in sample)  # a node with 3+ leaf children
     assert any(re.search(r"\(\S+ \(\S+ [^()\s]+\)\)", t) for t in sample)  # a unary chain over a leaf
     assert any("-RRB-" in t for t in RANDOM) and any("(_ " in t for t in RANDOM)
+
+
+# --- our writer against nltk's rendering -----------------------------------------------------------------
+# nltk.Tree.pformat (external reference) prints a tree on one line when the margin allows it, as
+# "(label child child)" with single spaces and leaves as they were read: for binary trees with no
+# unary chains that is exactly our canonical format (module docstring of data/treebank_writer.py).
+
+ONE_LINE = 10**9  # a margin no tree reaches, so nltk never breaks the line
+PTB_ESCAPE_OF = {char: escape for escape, char in PTB_ESCAPES.items()}  # the published convention, not our table
+
+
+def _ours_unchanged(text: str) -> bool:
+    """True when the reader keeps nltk's structure: every node binary or a preterminal over one word."""
+    tree = nltk.Tree.fromstring(text)
+    nodes = [tree[p] for p in tree.treepositions() if isinstance(tree[p], nltk.Tree)]
+    return all(len(n) == 2 and all(isinstance(c, nltk.Tree) for c in n)
+               or len(n) == 1 and isinstance(n[0], str) for n in nodes)
+
+
+BINARY_SAMPLE = [t for t in HANDWRITTEN + RANDOM if _ours_unchanged(t)]
+
+
+@pytest.mark.parametrize("text", BINARY_SAMPLE)
+def test_written_tree_equals_nltks_rendering_of_the_same_input(text):
+    from rntn_engine.data.treebank_writer import format_tree
+
+    assert format_tree(parse_tree(text)) == nltk.Tree.fromstring(text).pformat(margin=ONE_LINE)
+
+
+def _nltk_tree_of(tree, labels) -> nltk.Tree:
+    """An nltk.Tree with our tree's structure, labels and (escaped) words, built node by node."""
+    built = {}
+    for i in range(tree.n_nodes):  # post-order: children come before their parent
+        label = "_" if labels[i] == UNLABELLED else str(labels[i])
+        if tree.left[i] < 0:
+            word = "".join(PTB_ESCAPE_OF.get(ch, ch) for ch in tree.words[tree.word[i]])
+            built[i] = nltk.Tree(label, [word])
+        else:
+            built[i] = nltk.Tree(label, [built[tree.left[i]], built[tree.right[i]]])
+    return built[tree.root]
+
+
+@pytest.mark.parametrize("seed", range(40))
+def test_written_random_tree_equals_nltks_rendering(seed):
+    from rntn_engine.data.synthetic_trees import random_binary_tree
+    from rntn_engine.data.treebank_writer import format_tree
+
+    rng = np.random.default_rng(seed)
+    words = ["moss", "(", ")", "a(b)c", "{x}", "[y]", "café", "庭園", "🌹", "don't", "_", "#", "e.g."]
+    tree = random_binary_tree(rng, int(rng.integers(1, 12)), 5, words, p_unlabelled=0.3)
+    assert format_tree(tree) == _nltk_tree_of(tree, tree.label).pformat(margin=ONE_LINE)
+    predicted = rng.integers(-1, 12, size=tree.n_nodes)  # labels passed in, -1 written '_', two digits too
+    assert format_tree(tree, predicted) == _nltk_tree_of(tree, predicted).pformat(margin=ONE_LINE)
+
+
+def test_the_writer_sample_is_not_empty():
+    assert len(BINARY_SAMPLE) >= 15 and any("-LRB-" in t for t in BINARY_SAMPLE)

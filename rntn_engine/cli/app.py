@@ -58,6 +58,7 @@ def _register_commands() -> None:
 
     app.command("stats")(stats_command.stats)
     from rntn_engine.cli import (
+        convert_command,
         evaluate_command,
         export_vectors_command,
         gradcheck_command,
@@ -78,6 +79,7 @@ def _register_commands() -> None:
     app.command("report")(report_command.report)
     app.command("export-vectors")(export_vectors_command.export_vectors)
     app.command("gradcheck")(gradcheck_command.gradcheck)
+    app.command("convert-labelled-sentences")(convert_command.convert_labelled_sentences)
 
 
 _register_commands()

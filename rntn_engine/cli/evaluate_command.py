@@ -11,6 +11,7 @@ from typing import Annotated, Optional
 import typer
 
 from rntn_engine.cli.app_exit import EXIT_BAD_INPUT
+from rntn_engine.cli.shared_options import JobsOption, JsonOption, ProgressOption
 from rntn_engine.cli.tables import render_table
 
 SCORE_HEADERS = {"fine_all": "fine all", "fine_root": "fine root", "binary_all": "binary all",
@@ -35,13 +36,13 @@ def _number(x: float, digits: int = 4) -> str:
 def evaluate(
     checkpoints: Annotated[list[str], typer.Argument(help="Checkpoint files, glob patterns (quote them) or run directories (all their checkpoints).")],
     treebank: Annotated[list[Path], typer.Option("--treebank", "-t", help="Treebank to score on; repeat for several.")],
-    jobs: Annotated[int, typer.Option("--jobs", "-j", min=1, help="Worker processes. [default: all cores]")] = os.cpu_count() or 1,
+    jobs: JobsOption = None,
     best_by: Annotated[str, typer.Option("--best-by", help="Score that marks the best row per treebank: fine_root, fine_all, binary_root, binary_all or loss (lowest).")] = "fine_root",
     neutral_class: Annotated[Optional[str], typer.Option("--neutral-class", help="Neutral class left out of binary scores, or 'none'. [default: C//2 for odd C, none for even C]")] = None,
     out: Annotated[Optional[Path], typer.Option("--out", help="Also write the table to OUT.csv and OUT.json.")] = None,
     detail: Annotated[bool, typer.Option("--detail", help="For one checkpoint: per-class precision/recall/F1, confusion matrices, accuracy by phrase length.")] = False,
-    as_json: Annotated[bool, typer.Option("--json", help="Print JSON instead of tables.")] = False,
-    progress: Annotated[Optional[bool], typer.Option("--progress/--no-progress", help="Progress bar. [default: only on a terminal]")] = None,
+    as_json: JsonOption = False,
+    progress: ProgressOption = None,
 ) -> None:
     """Score checkpoints on treebanks: fine-grained and binary accuracy at all nodes and at roots, and loss.
 
@@ -66,7 +67,7 @@ def evaluate(
         return
     bar = tqdm(unit="tree", desc=f"{len(paths)} checkpoint(s) x {len(books)} treebank(s)",
                disable=None if progress is None else not progress, leave=False)
-    rows = evaluate_many(paths, books, jobs, neutral, progress=bar.update)
+    rows = evaluate_many(paths, books, jobs or os.cpu_count() or 1, neutral, progress=bar.update)
     bar.close()
     mark_best(rows, best_by)
     if out is not None:

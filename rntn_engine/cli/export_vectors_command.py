@@ -16,11 +16,19 @@ def export_vectors(
 ) -> None:
     """Write the trained word vectors (row i of L for vocabulary word i, the unknown-word row
     `<unknown>` included) in word2vec text format (header `count dim`), or binary with --binary."""
+    from rntn_engine.data.errors import InputError
     from rntn_engine.data.word_vector_writers import write_word2vec_binary, write_word2vec_text
     from rntn_engine.run.checkpoints import load_checkpoint
 
+    if out.exists() and checkpoint.exists() and out.resolve() == checkpoint.resolve():
+        raise InputError(str(out), "is the checkpoint being read; choose another output file")
     model = load_checkpoint(checkpoint)
     write = write_word2vec_binary if binary else write_word2vec_text
-    write(out, model.vocabulary.words, model.params.L, compress=gzip_output)
+    try:
+        write(out, model.vocabulary.words, model.params.L, compress=gzip_output)
+    except ValueError as exc:
+        raise InputError(str(checkpoint), f"cannot export its vectors: {exc}") from None
+    except OSError as exc:
+        raise InputError(str(out), f"cannot write it: {exc.strerror or exc}") from None
     typer.echo(f"wrote {len(model.vocabulary):,} vectors of {model.config.dim} values to {out} "
                f"(word2vec {'binary' if binary else 'text'}{', gzip' if gzip_output else ''})")

@@ -20,7 +20,8 @@ def gradcheck(
 ) -> None:
     """Check every gradient group against central finite differences in float64 on random trees.
 
-    Prints the largest relative error per parameter group and exits 1 when any is above --threshold.
+    Prints the largest relative error per parameter group and exits 1 when any is above --threshold
+    or is not a number (NaN).
     Run it after touching a kernel.
     """
     import numpy as np
@@ -50,11 +51,15 @@ def gradcheck(
     typer.echo(f"gradient check: {model}, d={dim}, {trees} random trees ({bank.n_nodes} nodes), float64, "
                f"central differences h=1e-6")
     typer.echo(f"{'parameter':<10} {'size':>8} {'max relative error':>20}  verdict")
-    worst = 0.0
+    failed = []
     for name, err in errors.items():
-        worst = max(worst, err)
-        typer.echo(f"{name:<10} {params[name].size:>8} {err:>20.3e}  {'ok' if err <= threshold else 'FAILED'}")
-    if worst > threshold:
-        typer.echo(f"gradient check failed: largest relative error {worst:.3e} > threshold {threshold:.1e}", err=True)
+        ok = err <= threshold  # False for NaN as well: a NaN error is a failure, never a pass
+        if not ok:
+            failed.append(name)
+        typer.echo(f"{name:<10} {params[name].size:>8} {err:>20.3e}  {'ok' if ok else 'FAILED'}")
+    if failed:
+        shown = ", ".join(f"{name} {errors[name]:.3e}" for name in failed)
+        typer.echo(f"gradient check failed: relative error above threshold {threshold:.1e} or not a number: "
+                   f"{shown}", err=True)
         raise typer.Exit(EXIT_CHECK_FAILED)
     typer.echo(f"all gradients within {threshold:.1e}")

@@ -9,21 +9,23 @@ from typing import Annotated
 import typer
 
 from rntn_engine.cli.app_exit import EXIT_BAD_INPUT
+from rntn_engine.cli.shared_options import JsonOption
 from rntn_engine.cli.tables import render_pairs, render_table
 
 
 def inspect(
     checkpoint: Annotated[Path, typer.Argument(help="A checkpoint-step*.h5 or model.h5 file.")],
-    as_json: Annotated[bool, typer.Option("--json", help="Print the summary as JSON.")] = False,
+    as_json: JsonOption = False,
 ) -> None:
     """Summarise a checkpoint: format version, model and sizes, position, data hashes, metrics,
     and the result of verifying every dataset's checksum (exit 1 if any fails)."""
-    from rntn_engine.data.checkpoint_file import CheckpointError, read_checkpoint
+    from rntn_engine.data.checkpoint_file import CheckpointError, CheckpointUnavailableError, read_checkpoint
+    from rntn_engine.run.checkpoints import array_layout
 
     try:
-        content = read_checkpoint(checkpoint)
+        content = read_checkpoint(checkpoint, layout=array_layout)
         verified = f"all {len(content.arrays) + len(content.words) + len(content.records)} datasets verified"
-    except CheckpointError as exc:
+    except (CheckpointError, CheckpointUnavailableError) as exc:
         typer.echo(f"{exc}", err=True)
         raise typer.Exit(EXIT_BAD_INPUT)
     config, state = content.records.get("config", {}), content.records.get("state", {})
@@ -35,6 +37,7 @@ def inspect(
         "parameters": n_params, "state": state, "data_hashes": content.records.get("data_hashes", {}),
         "versions": content.records.get("versions", {}), "metrics": content.records.get("metrics", []),
         "has_optimiser_state": any(k.startswith("adagrad_sums/") for k in content.arrays),
+        "role": file_role(checkpoint.name, state),
     }
     if as_json:
         typer.echo(json.dumps(summary, indent=2))
@@ -48,12 +51,12 @@ def inspect(
              ("model", f"{summary['model']}, d={summary['dim']}, C={summary['num_classes']}, {summary['dtype']}, "
                        f"vocabulary {summary['vocabulary']:,} words, {n_params:,} parameters"),
              ("position", position),
+             ("this file", file_role(checkpoint.name, state)),
              ("written by", ", ".join(f"{k} {v}" for k, v in summary["versions"].items()))]
     for key, digest in summary["data_hashes"].items():
         pairs.append((key, f"{config.get(key, '')} sha256 {digest[:16]}..."))
     if state.get("best_value") is not None:
-        pairs.append(("best", f"{config.get('best_metric')} {state['best_value']:.4f} at step {state['best_step']} "
-                              f"({state['best_checkpoint']})"))
+        pairs.append(("best", f"{config.get('best_metric')} {state['best_value']:.4f} in {state['best_checkpoint']}"))
     typer.echo(render_pairs(pairs))
     if summary["metrics"]:
         rows = [(m["epoch"], m["step"], f"{m['train_loss']:.4f}",
@@ -61,3 +64,15 @@ def inspect(
                  f"{m['dev_fine_root']:.4f}" if "dev_fine_root" in m else "-") for m in summary["metrics"]]
         typer.echo("")
         typer.echo(render_table(["epoch", "step", "train loss", "dev all-nodes", "dev root"], rows))
+
+
+def file_role(name: str, state: dict) -> str:
+    """What a run file is, from its name and the run state it holds."""
+    from rntn_engine.run.run_directory import BEST_FILE, MODEL_FILE, checkpoint_name
+
+    is_best = bool(state.get("best_checkpoint")) and state.get("best_checkpoint") == checkpoint_name(state.get("step", 0))
+    if name == MODEL_FILE:
+        return "a run's final model: " + ("its best checkpoint" if is_best else "its last parameters")
+    if name == BEST_FILE:
+        return f"a run's best checkpoint ({state.get('best_checkpoint')})"
+    return "a checkpoint" + (", the best of its run when written" if is_best else "")

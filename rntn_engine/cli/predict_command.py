@@ -5,10 +5,11 @@ from __future__ import annotations
 import json
 import sys
 from pathlib import Path
-from typing import Annotated, Optional
+from typing import Annotated
 
 import typer
 
+from rntn_engine.cli.shared_options import ProgressOption, ThreadsOption
 
 def predict(
     checkpoint: Annotated[Path, typer.Argument(help="A model.h5 or checkpoint file.")],
@@ -16,8 +17,8 @@ def predict(
     output_format: Annotated[str, typer.Option("--format", help="trees: bracketed trees with predicted labels; jsonl: per sentence, every node's span text, label and class probabilities.")] = "trees",
     input_format: Annotated[str, typer.Option("--input-format", help="auto (a line starting with '(' is a tree, any other a sentence), trees, or sentences.")] = "auto",
     output: Annotated[str, typer.Option("--output", "-o", help="Write here instead of standard output.")] = "-",
-    threads: Annotated[int, typer.Option("--threads", min=1, help="Worker threads (the labels do not depend on it).")] = 1,
-    progress: Annotated[Optional[bool], typer.Option("--progress/--no-progress", help="Progress bar on standard error, in trees/s. [default: when standard error is a terminal and the output is not]")] = None,
+    threads: ThreadsOption = 1,
+    progress: ProgressOption = None,
 ) -> None:
     """Predict a label for every node of every input tree or sentence, streaming any size of input.
 

@@ -12,6 +12,7 @@ import typer
 from tqdm import tqdm
 
 import rntn_engine.kernels  # noqa: F401  guards numba's on-disk cache, which also holds the treebank scanner
+from rntn_engine.cli.shared_options import JsonOption
 from rntn_engine.cli.tables import format_count, format_number, format_share, render_pairs, render_table
 from rntn_engine.data.treebank_bulk import iter_tree_blocks
 from rntn_engine.data.treebank_stats import LabelDistribution, StatsAccumulator, TreebankStats
@@ -28,10 +29,7 @@ def stats(
         list[Path],
         typer.Argument(help="Treebank files: bracketed trees, one per line (or spread over several).", metavar="TREEBANK", show_default=False),
     ],
-    json_output: Annotated[
-        bool,
-        typer.Option("--json", help="Print one JSON object instead of tables: {'files': [...], 'total': {...}}."),
-    ] = False,
+    json_output: JsonOption = False,
     num_classes: Annotated[
         Optional[int],
         typer.Option(

@@ -8,6 +8,7 @@ from typing import Annotated
 
 import typer
 
+from rntn_engine.cli.shared_options import JsonOption
 from rntn_engine.cli.tables import render_pairs
 
 
@@ -22,7 +23,7 @@ def format_seconds(seconds: float | None) -> str:
 
 def status(
     run_dir: Annotated[Path, typer.Argument(help="Run directory made by `rntn train`.")],
-    as_json: Annotated[bool, typer.Option("--json", help="Print the summary as JSON.")] = False,
+    as_json: JsonOption = False,
 ) -> None:
     """Tell whether a run is alive, where it is (epoch, step, percentage), its speed, an ETA,
     the latest dev scores and the best checkpoint. Reads only; changes nothing."""
@@ -50,6 +51,8 @@ def status(
                                     f"root {latest['dev_fine_root']:.4f}"))
     if info["best_value"] is not None:
         pairs.append(("best", f"{info['best_metric']} {info['best_value']:.4f} in {info['best_checkpoint']}"))
+    for name, holds in info["files"].items():
+        pairs.append((name, holds))
     pairs.append(("checkpoints", f"{info['checkpoints']} (newest valid: {info['newest_checkpoint'] or 'none'})"))
     for problem in info["damaged_checkpoints"]:
         pairs.append(("damaged", problem))

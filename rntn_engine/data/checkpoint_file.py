@@ -9,11 +9,14 @@ Layout (readable with plain h5py or ``h5dump``)::
     /records/<name>        one UTF-8 JSON text each (config, run state, metrics, data hashes,
                            library versions); attrs: sha256 (of the UTF-8 text), description
 
-Writing (:func:`write_checkpoint`): a fresh file under a temporary name in the
-target directory (``.<final name>.<pid>.tmp``), closed, fsynced, renamed over the
-final name, then the directory fsynced; the rename is the commit point. Any error
-removes the temporary file and leaves what was there before untouched. No file is
-ever updated in place, and nothing is pickled.
+Writing (:func:`write_checkpoint`): the whole HDF5 file is built in memory, then
+written by data/atomic_files.py (a temporary file in the target directory, fsync,
+rename over the final name, fsync of the directory; the rename is the commit point).
+HDF5 itself therefore never touches the disk while writing: a full disk or a file-size
+limit surfaces as one OSError from a plain write or fsync, the temporary file is
+removed, and what was there before stays untouched. The price is one extra copy of the
+checkpoint in memory while it is written. No file is ever updated in place, and
+nothing is pickled.
 
 Reading (:func:`read_checkpoint`) verifies every checksum; any open or read
 problem raises :class:`CheckpointError` naming the file and the dataset.
@@ -21,9 +24,12 @@ problem raises :class:`CheckpointError` naming the file and the dataset.
 
 from __future__ import annotations
 
+import fcntl
 import hashlib
+import io
 import json
 import os
+import stat
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
@@ -31,19 +37,22 @@ from typing import Callable
 import h5py
 import numpy as np
 
+from rntn_engine.data.atomic_files import FaultHook, write_atomically
 from rntn_engine.data.errors import InputError
 
 FORMAT_NAME = "rntn_engine checkpoint"
-FORMAT_VERSION = 1
-TEMP_SUFFIX = ".tmp"
-
-# Test-only fault injection: a callable(point_name) run at named points of the write
-# (see tests); None in normal use.
-FaultHook = Callable[[str], None]
+FORMAT_VERSION = 2  # 2: descriptive dataset names (word_vectors, ...); version 1 files are not read
 
 
 class CheckpointError(InputError):
-    """A checkpoint file that cannot be read, or whose content fails verification."""
+    """A checkpoint file that is damaged or not ours: its format, structure, content or a checksum is wrong.
+
+    Only this error lets a run set a checkpoint aside (renamed ``*.damaged``) and use an older one.
+    """
+
+
+class CheckpointUnavailableError(InputError):
+    """A checkpoint that cannot be read now (busy, no permission, I/O error, out of memory): maybe intact."""
 
 
 @dataclass
@@ -71,126 +80,212 @@ def words_checksum(words: list[str]) -> str:
     return _sha256("\0".join(words).encode("utf-8"))
 
 
-def temp_name_for(path: Path) -> Path:
-    """The temporary name a write of ``path`` uses: hidden, same directory, our own suffix."""
-    return path.with_name(f".{path.name}.{os.getpid()}{TEMP_SUFFIX}")
-
-
-def is_our_temp_file(path: Path) -> bool:
-    """True for leftovers of an interrupted :func:`write_checkpoint` (safe to delete)."""
-    name = path.name
-    return name.startswith(".") and name.endswith(TEMP_SUFFIX) and ".h5." in name
-
-
-def fsync_directory(directory: Path) -> None:
-    fd = os.open(directory, os.O_RDONLY)
-    try:
-        os.fsync(fd)
-    finally:
-        os.close(fd)
+def checkpoint_image(content: CheckpointContent) -> io.BytesIO:
+    """The complete HDF5 file of ``content``, built in memory (no disk I/O)."""
+    image = io.BytesIO()
+    # File format of HDF5 1.8 at the newest: its superblock has no "open for writing" flag, so a file that
+    # another program once opened for writing and died holding stays readable (the newer format refuses it)
+    with h5py.File(image, "w", libver=("earliest", "v108")) as f:
+        f.attrs["format"] = FORMAT_NAME
+        f.attrs["format_version"] = content.format_version
+        f.attrs["written_by"] = "rntn_engine"
+        for key, value in content.arrays.items():
+            value = np.ascontiguousarray(value)
+            ds = f.create_dataset(f"arrays/{key}", data=value)
+            ds.attrs["sha256"] = array_checksum(value)
+            ds.attrs["description"] = content.descriptions.get(f"arrays/{key}", "")
+        for key, words in content.words.items():
+            ds = f.create_dataset(f"words/{key}", data=np.array(words, dtype=object),
+                                  dtype=h5py.string_dtype("utf-8"))
+            ds.attrs["sha256"] = words_checksum(list(words))
+            ds.attrs["description"] = content.descriptions.get(f"words/{key}", "")
+        for key, value in content.records.items():
+            text = json.dumps(value, sort_keys=True, ensure_ascii=False)
+            ds = f.create_dataset(f"records/{key}", data=text, dtype=h5py.string_dtype("utf-8"))
+            ds.attrs["sha256"] = _sha256(text.encode("utf-8"))
+            ds.attrs["description"] = content.descriptions.get(f"records/{key}", "")
+    return image
 
 
 def write_checkpoint(path: Path | str, content: CheckpointContent, fault: FaultHook | None = None) -> None:
     """Write ``content`` to ``path`` atomically (see module docstring). Raises OSError on failure."""
-    path = Path(path)
-    tmp = temp_name_for(path)
-    hit = fault or (lambda point: None)
-    try:
-        hit("before_open")
-        with h5py.File(tmp, "w", libver="latest") as f:
-            f.attrs["format"] = FORMAT_NAME
-            f.attrs["format_version"] = content.format_version
-            f.attrs["written_by"] = "rntn_engine"
-            for key, value in content.arrays.items():
-                value = np.ascontiguousarray(value)
-                ds = f.create_dataset(f"arrays/{key}", data=value)
-                ds.attrs["sha256"] = array_checksum(value)
-                ds.attrs["description"] = content.descriptions.get(f"arrays/{key}", "")
-            hit("mid_write")
-            for key, words in content.words.items():
-                ds = f.create_dataset(f"words/{key}", data=np.array(words, dtype=object),
-                                      dtype=h5py.string_dtype("utf-8"))
-                ds.attrs["sha256"] = words_checksum(list(words))
-                ds.attrs["description"] = content.descriptions.get(f"words/{key}", "")
-            for key, value in content.records.items():
-                text = json.dumps(value, sort_keys=True, ensure_ascii=False)
-                ds = f.create_dataset(f"records/{key}", data=text, dtype=h5py.string_dtype("utf-8"))
-                ds.attrs["sha256"] = _sha256(text.encode("utf-8"))
-                ds.attrs["description"] = content.descriptions.get(f"records/{key}", "")
-            f.flush()
-        hit("before_fsync")
-        fd = os.open(tmp, os.O_RDONLY)
-        try:
-            os.fsync(fd)  # an error here fails this checkpoint; never retried (Linux reports it once)
-        finally:
-            os.close(fd)
-        hit("before_rename")
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            tmp.unlink()
-        except FileNotFoundError:
-            pass
-        raise
-    hit("after_rename")
-    fsync_directory(path.parent)
+    write_atomically(Path(path), checkpoint_image(content).getbuffer(), durable=True, fault=fault)
 
 
 def _fail(path: Path, what: str) -> CheckpointError:
     return CheckpointError(str(path), what)
 
 
-def read_checkpoint(path: Path | str, verify: bool = True) -> CheckpointContent:
-    """Read and verify a checkpoint; raise :class:`CheckpointError` naming the file and dataset."""
-    path = Path(path)
+# Records a checkpoint may hold (JSON text each), and the one word list.
+RECORD_NAMES = ("config", "vocabulary_options", "state", "metrics", "data_hashes", "versions")
+WORD_LISTS = ("vocabulary",)
+
+# The arrays a checkpoint holds, given its records and its vocabulary size: "group/name" -> (shape, dtype),
+# with the groups that may be absent as a whole (every array of such a group, or none). Supplied by the
+# caller (run/checkpoints.py), which knows the models.
+ArrayShapes = dict[str, tuple[tuple[int, ...], np.dtype]]
+ArrayLayout = Callable[[dict, int], tuple[ArrayShapes, tuple[str, ...]]]
+
+
+def _open_for_reading(path: Path) -> int:
+    """A file descriptor of ``path``, checked to be a regular file that no writer holds locked.
+
+    Raises CheckpointUnavailableError when the file cannot be read now (missing, busy, no
+    permission, not a regular file such as a FIFO, an I/O error): nothing says it is damaged.
+    """
     try:
-        f = h5py.File(path, "r")
+        info = os.stat(path)
     except FileNotFoundError:
-        raise _fail(path, "no such checkpoint file") from None
+        raise CheckpointUnavailableError(str(path), "no such checkpoint file") from None
     except OSError as exc:
-        hint = ""
-        if "lock" in str(exc).lower():
-            hint = " (on network filesystems set HDF5_USE_FILE_LOCKING=FALSE)"
-        raise _fail(path, f"not a readable HDF5 checkpoint: {str(exc).splitlines()[0]}{hint}") from None
+        raise CheckpointUnavailableError(str(path), f"cannot read it: {exc.strerror or exc}") from None
+    if not stat.S_ISREG(info.st_mode):
+        raise CheckpointUnavailableError(str(path), "not a regular file (a checkpoint is a plain HDF5 file)")
+    try:
+        fd = os.open(path, os.O_RDONLY | os.O_NONBLOCK | getattr(os, "O_CLOEXEC", 0))
+    except OSError as exc:
+        raise CheckpointUnavailableError(str(path), f"cannot read it: {exc.strerror or exc}") from None
+    try:
+        fcntl.flock(fd, fcntl.LOCK_SH | fcntl.LOCK_NB)  # HDF5 writers hold an exclusive flock
+    except BlockingIOError:
+        os.close(fd)
+        raise CheckpointUnavailableError(str(path), "another process holds it open for writing; wait for it to "
+                                                    "close the file (on network filesystems where HDF5 file "
+                                                    "locking fails, set HDF5_USE_FILE_LOCKING=FALSE)") from None
+    except OSError:
+        pass  # a filesystem without flock: nothing to learn here
+    return fd
+
+
+def _check_storage(path: Path, name: str, ds: "h5py.Dataset", file_size: int) -> None:
+    """Refuse storage that reads other files or costs more than the file holds, before reading any data."""
+    if ds.is_virtual:
+        raise _fail(path, f"dataset /{name} is a virtual dataset (it would read other files); not ours")
+    if ds.external:
+        raise _fail(path, f"dataset /{name} keeps its data in external files; not ours")
+    if ds.chunks is not None or ds.compression is not None:
+        raise _fail(path, f"dataset /{name} is chunked or compressed; ours are stored contiguous")
+    declared = int(ds.size) * (ds.dtype.itemsize if ds.dtype.kind not in "OSU" else 16)
+    if declared > file_size:
+        raise _fail(path, f"dataset /{name} declares {declared:,} bytes, more than the file's {file_size:,}")
+
+
+def _links(path: Path, f: "h5py.File") -> dict[str, "h5py.Dataset"]:
+    """Every dataset by its full name, refusing links to other files and anything outside our layout."""
+    found: dict[str, h5py.Dataset] = {}
+    stack = [("", f)]
+    while stack:
+        prefix, group = stack.pop()
+        for key in group:
+            name = f"{prefix}{key}"
+            link = group.get(key, getlink=True)
+            if isinstance(link, h5py.ExternalLink):
+                raise _fail(path, f"/{name} is a link to another file; not ours")
+            if isinstance(link, h5py.SoftLink):
+                raise _fail(path, f"/{name} is a soft link; not ours")
+            obj = group[key]
+            if isinstance(obj, h5py.Group):
+                if prefix == "" and key not in ("arrays", "words", "records") or prefix.count("/") > 1:
+                    raise _fail(path, f"unexpected group /{name}")
+                stack.append((name + "/", obj))
+            else:
+                top = name.partition("/")[0]
+                allowed = (top == "arrays" and name.count("/") == 2
+                           or top == "words" and name in {f"words/{w}" for w in WORD_LISTS}
+                           or top == "records" and name in {f"records/{r}" for r in RECORD_NAMES})
+                if not allowed:
+                    raise _fail(path, f"unexpected dataset /{name}")
+                found[name] = obj
+    return found
+
+
+def _text(value: object) -> str:
+    return value.decode("utf-8") if isinstance(value, bytes) else str(value)
+
+
+def read_checkpoint(path: Path | str, layout: ArrayLayout | None = None, verify: bool = True) -> CheckpointContent:
+    """Read and verify a checkpoint, distrusting the file.
+
+    Structure first, data after: the file must be a regular HDF5 file of our format and
+    version whose datasets are all in our layout, stored in the file itself (no virtual
+    datasets, external storage or links) and no larger than the file. The records and the
+    vocabulary are read and verified next; then ``layout`` (given them) says which arrays must
+    exist with which shape and dtype, and any missing, unexpected or misshapen array refuses
+    the file before a byte of array data is read. Every checksum is verified.
+
+    Raises :class:`CheckpointError` (damaged or not ours: format, checksum, structure, content)
+    or :class:`CheckpointUnavailableError` (cannot be read now: busy, permission, I/O, memory).
+    """
+    path = Path(path)
+    fd = _open_for_reading(path)
     content = CheckpointContent()
     try:
+        file_size = os.fstat(fd).st_size
+        try:
+            f = h5py.File(path, "r", locking=False)
+        except OSError as exc:
+            raise _fail(path, f"not a readable HDF5 checkpoint: {str(exc).splitlines()[0]}") from None
         with f:
-            if f.attrs.get("format") != FORMAT_NAME:
+            if _text(f.attrs.get("format", "")) != FORMAT_NAME:
                 raise _fail(path, f"not an rntn_engine checkpoint (format attribute {f.attrs.get('format')!r})")
             content.format_version = int(f.attrs.get("format_version", -1))
             if content.format_version != FORMAT_VERSION:
                 raise _fail(path, f"checkpoint format version {content.format_version}, this program reads "
                                   f"version {FORMAT_VERSION}: use the rntn_engine release that wrote it")
-            names: list[str] = []
-            f.visit(names.append)
-            for name in names:
-                obj = f[name]
-                if not isinstance(obj, h5py.Dataset):
-                    continue
-                top, _, key = name.partition("/")
-                expected = obj.attrs.get("sha256")
-                desc = obj.attrs.get("description", "")
-                if top == "arrays":
-                    value = obj[()]
-                    got = array_checksum(value)
-                    content.arrays[key] = value
-                elif top == "words":
-                    value = [w.decode("utf-8") if isinstance(w, bytes) else str(w) for w in obj[()]]
-                    got = words_checksum(value)
-                    content.words[key] = value
-                elif top == "records":
-                    raw = obj[()]
-                    text = raw.decode("utf-8") if isinstance(raw, bytes) else str(raw)
-                    got = _sha256(text.encode("utf-8"))
-                    content.records[key] = json.loads(text)
-                else:
-                    continue
-                if verify and got != expected:
+            datasets = _links(path, f)
+            for name, ds in datasets.items():
+                _check_storage(path, name, ds, file_size)
+
+            def verified(name: str, got: str) -> None:
+                if verify and got != _text(datasets[name].attrs.get("sha256", "")):
                     raise _fail(path, f"checksum mismatch in dataset /{name}: the file is damaged")
-                content.descriptions[name] = desc.decode() if isinstance(desc, bytes) else str(desc)
-    except CheckpointError:
+                content.descriptions[name] = _text(datasets[name].attrs.get("description", ""))
+
+            for name in sorted(n for n in datasets if n.startswith("records/")):
+                ds = datasets[name]
+                if ds.shape != () or ds.dtype.kind not in "OS":
+                    raise _fail(path, f"dataset /{name} is not one JSON text")
+                text = _text(ds[()])
+                verified(name, _sha256(text.encode("utf-8")))
+                try:
+                    content.records[name.partition("/")[2]] = json.loads(text)
+                except ValueError as exc:
+                    raise _fail(path, f"dataset /{name} is not valid JSON: {exc}") from None
+            for name in sorted(n for n in datasets if n.startswith("words/")):
+                ds = datasets[name]
+                if ds.ndim != 1 or ds.dtype.kind not in "OS":
+                    raise _fail(path, f"dataset /{name} is not a list of words")
+                words = [_text(w) for w in ds[()]]
+                verified(name, words_checksum(words))
+                content.words[name.partition("/")[2]] = words
+            arrays = {n.partition("/")[2]: ds for n, ds in datasets.items() if n.startswith("arrays/")}
+            if layout is not None:
+                try:
+                    expected, optional = layout(content.records, len(content.words.get("vocabulary", [])))
+                except (KeyError, TypeError, ValueError) as exc:
+                    raise _fail(path, f"stored description of the model is not valid: {exc}") from None
+                for group in optional:  # all of the group's arrays, or none
+                    if not any(key.startswith(group + "/") for key in arrays):
+                        expected = {k: v for k, v in expected.items() if not k.startswith(group + "/")}
+                for key in sorted(set(expected) - set(arrays)):
+                    raise _fail(path, f"dataset /arrays/{key} is missing")
+                for key in sorted(set(arrays) - set(expected)):
+                    raise _fail(path, f"unexpected dataset /arrays/{key}")
+                for key, (shape, dtype) in expected.items():
+                    if arrays[key].shape != tuple(shape) or arrays[key].dtype != dtype:
+                        raise _fail(path, f"dataset /arrays/{key} is {arrays[key].shape} {arrays[key].dtype}, "
+                                          f"expected {tuple(shape)} {np.dtype(dtype)}")
+            for key, ds in arrays.items():
+                value = ds[()]
+                verified(f"arrays/{key}", array_checksum(value))
+                content.arrays[key] = value
+    except (CheckpointError, CheckpointUnavailableError):
         raise
+    except MemoryError:
+        raise CheckpointUnavailableError(str(path), "not enough memory to read it") from None
     except Exception as exc:  # h5py raises OSError, KeyError, ValueError... on damaged files
         first = (str(exc).splitlines() or [type(exc).__name__])[0]
         raise _fail(path, f"damaged checkpoint ({type(exc).__name__}: {first})") from None
+    finally:
+        os.close(fd)
     return content

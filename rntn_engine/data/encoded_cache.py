@@ -7,10 +7,12 @@ key's parts and the SHA-256 of every column file.
 * Key: SHA-256 of the format version, the treebank file's own SHA-256, the binarisation
   mode, the number of classes and the vocabulary (its words in order, and lowercasing).
   A change to any of them gives another key, so a stale entry is never used.
-* Written atomically: the entry is built in a temporary directory of our own naming
-  (``.<name>-<key>.<pid>.tmp``) and renamed into place; other entries of the same name
-  (stale keys) and leftovers of interrupted writes are removed then, so a cache directory
-  holds one entry per name: its size is that of the encoded treebanks (about 9 bytes a node).
+* Written atomically: the entry is built in a temporary directory named as every temporary
+  of this program is (data/atomic_files.py: ``.<entry>.<pid>.rntn-tmp``), its files fsynced,
+  then renamed into place and the directory fsynced; other entries of the same name (stale
+  keys) and leftovers of interrupted writes of that name are removed then, so a cache
+  directory holds one entry per name: its size is that of the encoded treebanks (about 9
+  bytes a node).
 * Verified on load: every column file is hashed and compared with the manifest, and the
   arrays' shapes and dtypes are checked. A damaged or incomplete entry is removed and the
   caller reads the treebank again (and writes a new entry).
@@ -29,6 +31,7 @@ from pathlib import Path
 
 import numpy as np
 
+from rntn_engine.data.atomic_files import TEMP_PATTERN, fsync_directory, temp_name_for
 from rntn_engine.data.batches import CHILD_DTYPES, LABEL_DTYPES, EncodedTreebank
 from rntn_engine.data.vocabulary import Vocabulary
 
@@ -92,7 +95,7 @@ def store_cached_bank(cache_dir: Path, name: str, key: str, bank: EncodedTreeban
     entry = _entry(cache_dir, name, key)
     cache_dir = Path(cache_dir)
     cache_dir.mkdir(parents=True, exist_ok=True)
-    tmp = cache_dir / f".{entry.name}.{os.getpid()}.tmp"
+    tmp = temp_name_for(entry)
     shutil.rmtree(tmp, ignore_errors=True)
     tmp.mkdir()
     try:
@@ -109,14 +112,15 @@ def store_cached_bank(cache_dir: Path, name: str, key: str, bank: EncodedTreeban
         (tmp / MANIFEST).write_text(json.dumps(manifest, indent=1), encoding="utf-8")
         shutil.rmtree(entry, ignore_errors=True)
         os.replace(tmp, entry)
-        _fsync_directory(cache_dir)
+        fsync_directory(cache_dir)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     for other in cache_dir.iterdir():
-        stale = other.name.startswith(f"{name}-") and other != entry and other.is_dir()
-        leftover = re.fullmatch(rf"\.{re.escape(name)}-[0-9a-f]+\.\d+\.tmp", other.name) is not None
-        if stale or leftover:
+        stale = re.fullmatch(rf"{re.escape(name)}-[0-9a-f]{{32}}", other.name) and other != entry
+        temp = TEMP_PATTERN.match(other.name)
+        leftover = temp is not None and re.fullmatch(rf"{re.escape(name)}-[0-9a-f]{{32}}", temp.group("final"))
+        if (stale or leftover) and other.is_dir():
             shutil.rmtree(other, ignore_errors=True)
 
 
@@ -126,11 +130,3 @@ def _file_sha256(path: Path) -> str:
         for block in iter(lambda: fh.read(1 << 22), b""):
             digest.update(block)
     return digest.hexdigest()
-
-
-def _fsync_directory(path: Path) -> None:
-    fd = os.open(path, os.O_RDONLY)
-    try:
-        os.fsync(fd)
-    finally:
-        os.close(fd)

@@ -91,3 +91,15 @@ def tree_from_arrays(words, word, left, right, label, source: str = "") -> Tree:
         label=np.asarray(label, dtype=np.int32),
         source=source,
     )
+
+
+def right_branching_tree(words: list[str] | tuple[str, ...], source: str = "") -> Tree:
+    """``(w1 (w2 (... (w_{n-1} w_n))))``, every node unlabelled: the tree given to a sentence that
+    comes without a parse (English constituency structure is mostly right-branching, which keeps
+    negators and intensifiers next to what follows them)."""
+    n = len(words)
+    # post-order of (w1 (w2 (... (w_{n-1} w_n)))): all leaves first, then parents from the innermost out
+    word = list(range(n)) + [-1] * (n - 1)
+    left = [-1] * n + [n - 2 - k for k in range(n - 1)]
+    right = [-1] * n + [n - 1 if k == 0 else n + k - 1 for k in range(n - 1)]
+    return tree_from_arrays(words, word, left, right, [UNLABELLED] * (2 * n - 1), source)

@@ -48,6 +48,7 @@ BLOCK_BYTES = 16 * 1024 * 1024  # bytes read at a time (a module constant so tes
 MAX_LINE_BYTES = 16 * 1024 * 1024  # longest accepted text line (a row of about 1.6 million values)
 MAX_WORD_BYTES = 64 * 1024  # longest accepted word in a binary file
 DEFAULT_MAX_BYTES = 8 * 1024**3  # float32 bytes a file may declare (8 GiB; 3 million x 300 is 3.6 GB)
+MAX_DIM = 65_536  # values per vector a header may declare: a binary row is read whole, so this bounds its memory
 DETECTION_WINDOW = 4096  # bytes of the first row's values looked at to tell text from binary
 
 _GZIP_MAGIC = b"\x1f\x8b"
@@ -178,6 +179,11 @@ def read_file_start(stream: VectorStream, fmt: str, max_bytes: int, expected_dim
     binary = fmt == "word2vec-binary"
     if dim < 1:
         raise _error_at_start(path, binary, "the header declares dimension 0: expected at least 1 value per vector")
+    if dim > MAX_DIM:
+        raise _error_at_start(
+            path, binary, f"the header declares {dim:,} values per vector, more than the {MAX_DIM:,} a vector file "
+                          f"of ours may have (word vectors have hundreds); the header is wrong or the file is not one"
+        )
     if count * dim * 4 > max_bytes:
         raise _error_at_start(
             path,

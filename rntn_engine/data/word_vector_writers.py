@@ -18,12 +18,14 @@ from __future__ import annotations
 
 import gzip
 import os
-import re
+import unicodedata
+from pathlib import Path
 from typing import BinaryIO, Sequence
 
 import numpy as np
 
-_BAD_WORD_RE = re.compile(r"[ \t\n\r\x0b\x0c]")  # ASCII whitespace would split the row
+from rntn_engine.data.atomic_files import atomic_output
+
 
 
 def write_glove_text(
@@ -73,9 +75,11 @@ def _checked(words: Sequence[str], vectors: np.ndarray) -> np.ndarray:
     if not np.isfinite(values).all():
         raise ValueError("vectors must be finite float32 values (no NaN, Inf or values beyond 3.4e38)")
     seen: set[str] = set()
-    for word in words:
-        if not word or _BAD_WORD_RE.search(word):
-            raise ValueError(f"word {word!r} is empty or holds whitespace; it cannot be written as one field")
+    for row, word in enumerate(words):
+        bad = next((c for c in word if c.isspace() or unicodedata.category(c) in ("Cc", "Zl", "Zp")), None)
+        if not word or bad is not None:
+            what = "is empty" if not word else f"holds U+{ord(bad):04X} (whitespace or a control character)"
+            raise ValueError(f"word {row} {word!r} {what}: readers of vector files would not see it as one word")
         if word in seen:
             raise ValueError(f"word {word!r} appears twice")
         seen.add(word)
@@ -89,19 +93,9 @@ def _write_text_rows(out: BinaryIO, words: Sequence[str], values: np.ndarray) ->
 
 
 def _write_atomically(path: str | os.PathLike, compress: bool, write) -> None:
-    final = os.fspath(path)
-    temporary = f"{final}.writing-{os.getpid()}"
-    try:
-        with open(temporary, "wb") as raw:
-            if compress:
-                with gzip.GzipFile(fileobj=raw, mode="wb", mtime=0) as out:
-                    write(out)
-            else:
-                write(raw)
-            raw.flush()
-            os.fsync(raw.fileno())
-        os.replace(temporary, final)
-    except BaseException:
-        if os.path.exists(temporary):
-            os.remove(temporary)
-        raise
+    with atomic_output(Path(path)) as raw:
+        if compress:
+            with gzip.GzipFile(fileobj=raw, mode="wb", mtime=0) as out:
+                write(out)
+        else:
+            write(raw)

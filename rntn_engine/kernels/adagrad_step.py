@@ -1,28 +1,22 @@
-"""AdaGrad update (Duchi, Hazan & Singer 2011, diagonal form), in place on one parameter group.
+"""AdaGrad update (AdaGrad, 2011, diagonal form), in place on one parameter group.
 
-Legend: n elements of the group (any shape, flattened).
+Legend: n elements of a dense group (any shape, flattened); for a word array (L, LM),
+|V| rows of width w, of which the minibatch touched the r rows ``rows``.
 
     G     += g * g
     theta -= lr * g / (sqrt(G) + eps)
 
-``g`` is the full gradient of the minibatch objective, L2 term included (the
-objective adds lambda * theta for every element of a regularised group, so rows
-of L that the minibatch did not touch still decay, every step: see model/objective.py).
+``g`` is the full gradient of the minibatch objective, L2 term included. Dense groups
+(W, b, V, WM, Ws, bs) take lambda * theta on every element. Word arrays take it only in
+the rows the minibatch touched, lambda * (theta[w] - anchor[w]) with the anchor 0 or the
+row's starting value (model/objective.py states the objective this is the gradient of):
+a row no minibatch touches keeps its value and its G bit for bit.
 """
 
 from __future__ import annotations
 
 import numpy as np
 from numba import njit
-
-
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
-def adagrad_step(theta, G, g, lr, eps):
-    """theta (n,) updated in place; G (n,) squared-gradient sums, updated in place; g (n,) gradient."""
-    for i in range(theta.shape[0]):
-        gi = g[i]
-        G[i] += gi * gi
-        theta[i] -= lr * gi / (np.sqrt(G[i]) + eps)
 
 
 @njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
@@ -69,9 +63,61 @@ def adagrad_l2_step(theta, G, g, lam, lr, eps, update, flush_below):
             t = theta[i] - lr * gi / (np.sqrt(G[i]) + eps)
             # flush near-subnormal numbers to zero: L2 walks unused rows towards 0, and subnormal
             # operands make every later multiply in the kernels many times slower (measured)
-            theta[i] = t if abs(t) >= flush_below else 0.0
+            theta[i] = 0.0 if abs(t) < flush_below else t  # (NaN stays NaN: the trainer must see it)
             g[i] = 0
     else:
         for i in range(theta.shape[0]):
             g[i] = 0
+    return squares
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+def word_rows_l2(values, theta, rows, anchor, lam):
+    """The word-row L2 term of one minibatch, added to its gradient rows.
+
+        values[j] += lam * (theta[rows[j]] - anchor[rows[j]])      (anchor 0 when it has no rows)
+
+    values (r, w) in place; theta (|V|, w); rows (r,) int64; anchor (|V|, w) or (0, w); lam has
+    theta's dtype. Returns sum over the rows of ||theta[row] - anchor[row]||^2 in float64, row by
+    row (the same order as adagrad_l2_rows_step, so both give the same penalty).
+    """
+    anchored = anchor.shape[0] > 0
+    squares = 0.0
+    for j in range(rows.shape[0]):
+        r = rows[j]
+        for c in range(theta.shape[1]):
+            diff = theta[r, c] - anchor[r, c] if anchored else theta[r, c]
+            squares += np.float64(diff) * np.float64(diff)
+            values[j, c] += lam * diff
+    return squares
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+def adagrad_l2_rows_step(theta, G, rows, values, anchor, lam, lr, eps, update, flush_below):
+    """The word-row L2 term, the AdaGrad update and the zeroing of the gradient rows, in one pass.
+
+        gi     = values[j, c] + lam * (theta[r, c] - anchor[r, c])     r = rows[j]; anchor 0 if empty
+        G[r]  += gi * gi
+        theta[r, c] -= lr * gi / (sqrt(G[r, c]) + eps)                (skipped when update is False)
+        theta[r, c]  = 0 where |theta[r, c]| < flush_below             (as in adagrad_l2_step)
+        values[j, c] = 0
+
+    theta (|V|, w), G (|V|, w) in place, only at ``rows``; rows (r,) int64 ascending, distinct;
+    values (r, w) the data term's gradient of those rows; anchor (|V|, w) or (0, w).
+    Returns sum over the rows of ||theta[row] - anchor[row]||^2 before the update, in float64.
+    """
+    anchored = anchor.shape[0] > 0
+    squares = 0.0
+    for j in range(rows.shape[0]):
+        r = rows[j]
+        for c in range(theta.shape[1]):
+            t = theta[r, c]
+            diff = t - anchor[r, c] if anchored else t
+            squares += np.float64(diff) * np.float64(diff)
+            if update:
+                gi = values[j, c] + lam * diff
+                G[r, c] += gi * gi
+                t = t - lr * gi / (np.sqrt(G[r, c]) + eps)
+                theta[r, c] = 0.0 if abs(t) < flush_below else t
+            values[j, c] = 0
     return squares

@@ -5,7 +5,7 @@ Nodes are in post-order; ``order`` lists internal nodes by height and ``level_st
 cuts it into levels (see data/batches.py). Every node carries a vector p (d,) and a
 matrix P (d, d).
 
-Forward (Socher, Huval, Manning & Ng 2012), for every node in post-order:
+Forward (MV-RNN, 2012), for every node in post-order:
 
     leaf with word w:   p = L[w],   P = LM[w]
     internal, left child (a, A), right child (b, B):
@@ -28,7 +28,7 @@ matrix feeds nothing):
     e_a   += B^T g                 EP_B  += g a^T
     e_b   += A^T h                 EP_A  += h b^T
     dWM   += EP [A ; B]^T          [EP_A ; EP_B] += WM^T EP
-    leaf:    dL[w] += e,   dLM[w] += EP        (scatter_word_gradients, with rows of d*d for LM)
+    leaf:    dL[w] += e,   dLM[w] += EP        (kernels/word_rows.py, with rows of d*d for LM)
 
 In the same transposed layout, EPt (M*d, d) holds EP^T (row m*d + j = EP[:, j]); a
 level's EPt WM is (WM^T EP)^T, one product, and dWM += EPt^T ABt is one product over

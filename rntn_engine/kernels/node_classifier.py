@@ -2,7 +2,7 @@
 
 Legend: N nodes in the batch, d vector size, C classes.
 
-Forward, for every node i with vector p_i (Socher et al. 2013, eq. 1):
+Forward, for every node i with vector p_i (RNTN, 2013):
 
     s_i = Ws p_i + bs                        (C,)
     y_i = softmax(s_i)                       (C,)

@@ -2,7 +2,7 @@
 
 Legend: N nodes, d vector size, D = 2d, C classes, |V| vocabulary size.
 
-Same math as tree_compose.py + node_classifier.py (Socher et al. 2013), written the
+Same math as tree_compose.py + node_classifier.py (RNTN, 2013), written the
 direct way: no levels, no symmetric layout, one node at a time in post-order for
 the forward pass and in reverse post-order for the backward pass.
 
@@ -16,8 +16,8 @@ the forward pass and in reverse post-order for the backward pass.
               e_x = W^T delta + sum_k delta_k (V[k] + V[k]^T) x;  left gets e_x[:d], right e_x[d:]
     leaf:     dL[w] += e
 
-The MV-RNN's twin (reference_forward_mv, reference_backward_mv: Socher, Huval, Manning &
-Ng 2012; numba kernels in compose_matrix_vector.py) follows at the end, with its equations.
+The MV-RNN's twin (reference_forward_mv, reference_backward_mv: MV-RNN,
+2012; numba kernels in compose_matrix_vector.py) follows at the end, with its equations.
 """
 
 from __future__ import annotations
@@ -82,7 +82,7 @@ def reference_backward(L, W, b, V, Ws, bs, word, left, right, label, scale, P, Y
     return grads
 
 
-# --- matrix-vector model (MV-RNN; Socher, Huval, Manning & Ng 2012), twin of compose_matrix_vector.py ---
+# --- matrix-vector model (MV-RNN, 2012), twin of compose_matrix_vector.py ---
 #
 #    leaf:      p = L[w],  P = LM[w]
 #    internal:  left (a, A), right (b, B):  x = [B a ; A b];  p = tanh(W x + bias);  P = WM [A ; B]

@@ -4,7 +4,7 @@ Legend: N nodes in the batch, M internal nodes, d vector size, D = 2d,
 |V| vocabulary size. Nodes are in post-order; ``order`` lists internal nodes by
 height and ``level_start`` cuts it into levels (see data/batches.py).
 
-Forward (Socher et al. 2013, eqs. 2-3), for every node in post-order:
+Forward (RNN; RNTN, 2013), for every node in post-order:
 
     leaf with word w:        p = L[w]
     internal, children l, r: x = [p_l ; p_r]                      (D,)
@@ -24,7 +24,7 @@ classifier plus its parent):
     dV[k] += delta_k x x^T                                         (RNTN)
     e_x   = W^T delta + sum_k delta_k q_k                          (D,)
     e_l  += e_x[:d]          e_r += e_x[d:]
-    leaf:   dL[w] += e       (scatter_word_gradients)
+    leaf:   dL[w] += e       (kernels/word_rows.py: into the rows the minibatch touched)
 
 dW and dV are accumulated once per batch, as single matrix products over all M
 internal nodes: dW += Delta^T X and dVsym_layout = X^T G with
@@ -159,14 +159,3 @@ def add_symmetric_layout_gradient(dV, dVsym):
         for i in range(D):
             for j in range(D):
                 dV[k, i, j] += dVsym[i, k * D + j]
-
-
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
-def scatter_word_gradients(dL, E, word, leaves):
-    """dL (|V|, d) += E[i] at row word[i] for every leaf i, in the order of ``leaves``."""
-    d = E.shape[1]
-    for n in range(leaves.shape[0]):
-        i = leaves[n]
-        w = word[i]
-        for k in range(d):
-            dL[w, k] += E[i, k]

@@ -1,21 +1,24 @@
-"""AdaGrad optimiser state over the flat parameter buffer (Duchi, Hazan & Singer 2011).
+"""AdaGrad optimiser state over the flat parameter buffer (AdaGrad, 2011, diagonal form).
 
-    G     += g * g                       (per element, summed since the last reset)
+    G     += g * g                       (per element, summed over the whole run)
     theta -= lr * g / (sqrt(G) + eps)
 
-The update runs in one numba pass (kernels/adagrad_step.py) over every element,
-since the gradient is dense: the L2 term reaches every row of L each step
-(model/objective.py). ``frozen`` names parameter arrays that are not updated
-(for example word vectors kept fixed); their G stays zero.
+Dense groups (W, b, V, WM, Ws, bs) are updated in one numba pass each
+(kernels/adagrad_step.py). The word arrays (L, and LM of the MV-RNN) are updated only
+in the rows the minibatch touched (the gradient holds those rows only, see
+model/objective.py), so a step costs what its trees touch and an untouched row keeps
+its value and its G bit for bit. G itself stays one dense array per parameter: it is
+part of a run's state and goes into every checkpoint. ``frozen`` names parameter
+arrays that are not updated (for example word vectors kept fixed); their G stays zero.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from rntn_engine.kernels.adagrad_step import adagrad_l2_step, adagrad_step
+from rntn_engine.kernels.adagrad_step import adagrad_l2_rows_step, adagrad_l2_step
 from rntn_engine.model.objective import L2Strengths
-from rntn_engine.model.parameters import L2_GROUP, Parameters
+from rntn_engine.model.parameters import L2_GROUP, Gradient, Parameters
 
 
 class AdaGrad:
@@ -29,33 +32,44 @@ class AdaGrad:
         self.frozen = tuple(frozen)
         self.sums = params.zeros_like()  # G, same layout as the parameters
 
-    def step(self, params: Parameters, grads: Parameters) -> None:
-        """One update of ``params`` in place from ``grads``."""
-        if not self.frozen:
-            adagrad_step(params.flat, self.sums.flat, grads.flat, self.lr, self.eps)
-            return
-        for name in params.names():
-            if name not in self.frozen:
-                adagrad_step(params[name].reshape(-1), self.sums[name].reshape(-1), grads[name].reshape(-1),
-                             self.lr, self.eps)
+    def step(self, params: Parameters, grads: Gradient) -> None:
+        """One update of ``params`` in place from ``grads`` (whose L2 term, if any, is already in)."""
+        self._update(params, grads, L2Strengths(0.0, 0.0, 0.0, 0.0, 0.0), {}, flush=False)
 
-    def step_with_l2(self, params: Parameters, grads: Parameters, l2: L2Strengths) -> float:
+    def step_with_l2(self, params: Parameters, grads: Gradient, l2: L2Strengths,
+                     anchors: dict[str, np.ndarray] | None = None) -> float:
         """Add the L2 gradient, update, and zero ``grads``, in one pass per parameter group.
 
-        ``grads`` holds the data term's gradient only (``loss_and_gradient(..., include_l2=False)``).
+        ``grads`` holds the data term's gradient only (``loss_and_gradient(..., include_l2=False)``);
+        ``anchors`` are the objective's (what each word array's L2 term pulls toward; absent: zero).
         The parameters come out bitwise as from ``loss_and_gradient`` with L2 followed by
         :meth:`step`, except that magnitudes below sqrt(smallest normal number) -- about 1e-19 in
         float32, 1e-154 in float64 -- are flushed to zero, so no product of two parameters is
-        subnormal (subnormal operands slow every later step; see kernels/adagrad_step.py). Returns the penalty sum_g lambda_g / 2 ||theta_g||^2 at the parameters
-        before the update (the part of J the data term leaves out).
+        subnormal (subnormal operands slow every later step; see kernels/adagrad_step.py).
+        Returns the L2 term of the minibatch's objective at the parameters before the update
+        (the part of J the data term leaves out).
         """
+        return self._update(params, grads, l2, anchors or {}, flush=True)
+
+    def _update(self, params: Parameters, grads: Gradient, l2: L2Strengths, anchors: dict[str, np.ndarray],
+                flush: bool) -> float:
         penalty = 0.0
         for name in params.names():
             lam = l2.of(L2_GROUP[name])
-            theta = params[name].reshape(-1)
-            squares = adagrad_l2_step(theta, self.sums[name].reshape(-1), grads[name].reshape(-1),
-                                      theta.dtype.type(lam), self.lr, self.eps, name not in self.frozen,
-                                      float(np.sqrt(np.finfo(theta.dtype).tiny)))
+            theta = params[name]
+            update = name not in self.frozen
+            flush_below = float(np.sqrt(np.finfo(theta.dtype).tiny)) if flush else 0.0
+            if name in grads.rows:  # word array: only the rows the minibatch touched
+                rows = grads.rows[name]
+                width = rows.width
+                anchor = anchors.get(name, theta[:0]).reshape(-1, width)
+                squares = adagrad_l2_rows_step(theta.reshape(-1, width), self.sums[name].reshape(-1, width),
+                                               rows.rows, rows.values, anchor, theta.dtype.type(lam), self.lr,
+                                               self.eps, update, flush_below)
+            else:
+                theta = theta.reshape(-1)
+                squares = adagrad_l2_step(theta, self.sums[name].reshape(-1), grads[name].reshape(-1),
+                                          theta.dtype.type(lam), self.lr, self.eps, update, flush_below)
             penalty += 0.5 * lam * squares
         return penalty
 

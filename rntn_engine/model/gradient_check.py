@@ -13,7 +13,7 @@ import numpy as np
 
 from rntn_engine.data.batches import FlatBatch
 from rntn_engine.model.objective import TreeModelObjective
-from rntn_engine.model.parameters import Parameters
+from rntn_engine.model.parameters import Gradient, Parameters
 
 
 def relative_error(analytic: np.ndarray, numeric: np.ndarray) -> float:
@@ -22,14 +22,14 @@ def relative_error(analytic: np.ndarray, numeric: np.ndarray) -> float:
 
 
 def finite_difference_errors(objective: TreeModelObjective, params: Parameters, chunks: list[FlatBatch],
-                             h: float = 1e-6, analytic: Parameters | None = None) -> dict[str, float]:
+                             h: float = 1e-6, analytic: Gradient | None = None) -> dict[str, float]:
     """Largest relative error of the analytic gradient against central differences, per parameter name.
 
     ``analytic`` defaults to the objective's own gradient; pass another to check it instead.
     Parameters are restored exactly afterwards.
     """
     if analytic is None:
-        analytic = params.zeros_like()
+        analytic = Gradient(params.shape)
         objective.loss_and_gradient(params, analytic, chunks)
     errors = {}
     for name in params.names():
@@ -43,5 +43,5 @@ def finite_difference_errors(objective: TreeModelObjective, params: Parameters, 
             down = objective.loss(params, chunks)
             view[i] = keep
             numeric[i] = (up - down) / (2 * h)
-        errors[name] = relative_error(analytic[name].reshape(-1).astype(np.float64), numeric)
+        errors[name] = relative_error(analytic.dense(name).reshape(-1).astype(np.float64), numeric)
     return errors

@@ -1,20 +1,30 @@
 """The training objective of a minibatch: loss and gradient, and forward-only prediction.
 
-For a minibatch of B trees (DESIGN.md):
+For a minibatch of B trees whose leaves hold the set of distinct words U:
 
     J = (1/B) * sum over labelled nodes of -log y[t]
-        + sum over groups g of (lambda_g / 2) * ||theta_g||^2
+        + sum over dense groups g of (lambda_g / 2) * ||theta_g||^2
+        + (lambda_words / 2) * sum over w in U of ||L[w] - A[w]||^2
+        + (lambda_word_matrices / 2) * sum over w in U of ||LM[w]||^2          (MV-RNN)
 
-with groups words (L), compose (W, and WM of the MV-RNN), tensor (V), word_matrices
-(LM of the MV-RNN), classifier (Ws); biases are not regularised. The L2 term is part
-of *every* minibatch objective and is applied densely: every row of L receives
-lambda_words * L[w] each step (every LM[w] lambda_word_matrices * LM[w]), whether or
-not the minibatch contains word w. This is the exact gradient of J, so AdaGrad sees
-it too (a lazy scheme cannot be exact under AdaGrad, whose step size depends on the
-whole gradient history). Here (``add_l2``) it costs one pass over L (and LM) per step,
-in blocks of L2_BLOCK numbers so that no temporary grows with the vocabulary; the
-training loop instead asks for the data term only (``include_l2=False``) and lets
-AdaGrad.step_with_l2 add the same term inside its single update pass, with the same bits.
+Dense groups: compose (W, and WM of the MV-RNN), tensor (V), classifier (Ws); biases are
+not regularised. The word arrays L and LM have one row per vocabulary word, and a
+minibatch's objective holds the L2 term of each word it contains once, whatever the
+number of its occurrences (the rows touched by the minibatch). The anchor A is 0, or
+the starting value of every word vector (``l2_words_toward = "start"``, common practice
+when fine-tuning pretrained vectors: the term then pulls a vector back toward its
+pretrained value rather than toward zero).
+
+So a training step computes, stores and updates only the rows its trees touch: its cost
+does not grow with the vocabulary, and a word that no minibatch contains keeps its
+starting vector bit for bit (a dense L2 term would walk it toward zero every step: under
+AdaGrad, whose step size is normalised, by about lr/sqrt(t) per coordinate whatever
+lambda is). The gradient (model/parameters.py: Gradient) holds the dense groups in one
+flat buffer and the word arrays as their touched rows.
+
+Here (``add_l2``) the L2 term is added to a gradient; the training loop instead asks for
+the data term only (``include_l2=False``) and lets AdaGrad.step_with_l2 add the same
+term inside its single update pass, with the same bits.
 
 Parallelism and determinism: a minibatch is cut into a fixed number of chunks
 (``grad_chunks``, a setting stored with the run, not the machine's core count).
@@ -22,8 +32,8 @@ Each chunk runs the serial kernels into buffers of its own; chunk gradients are
 then summed in chunk order. The result is therefore bitwise the same whatever the
 number of threads that run the chunks. A chunk's own buffers hold only the small
 dense gradients (W, b, WM, Ws, bs, the tensor's layout); the word rows (dL, dLM) are
-scattered from each chunk's node errors straight into the minibatch gradient, in
-chunk order, so no chunk ever holds a vocabulary-sized copy.
+scattered from each chunk's node errors into the minibatch's touched rows (ascending
+word ids), in chunk order.
 
 Models: "rnn" and "rntn" run kernels/tree_compose.py, "mvrnn" runs
 kernels/compose_matrix_vector.py; the classifier (kernels/node_classifier.py) and
@@ -42,14 +52,15 @@ from threadpoolctl import threadpool_limits
 from rntn_engine.data.batches import EncodedTreebank, FlatBatch, make_batch
 from rntn_engine.kernels.compose_matrix_vector import backward_compose_mv, forward_compose_mv
 from rntn_engine.kernels.node_classifier import backward_classify, forward_classify
+from rntn_engine.kernels.adagrad_step import word_rows_l2
 from rntn_engine.kernels.tree_compose import (
     add_symmetric_layout_gradient,
     backward_compose,
     forward_compose,
-    scatter_word_gradients,
     symmetric_tensor_layout,
 )
-from rntn_engine.model.parameters import L2_GROUP, Parameters
+from rntn_engine.kernels.word_rows import scatter_word_rows, touched_rows
+from rntn_engine.model.parameters import L2_GROUP, WORD_ROW_NAMES, Gradient, Parameters
 
 
 @dataclass(frozen=True)
@@ -67,7 +78,7 @@ class L2Strengths:
 
 
 FORWARD_Q_ROWS = 512  # forward-only passes compute the tensor term in blocks of this many nodes
-L2_BLOCK = 1 << 22  # elements per pass of the L2 term: its float64 copies stay at 32 MiB, whatever |V| d^2
+L2_BLOCK = 1 << 22  # elements per pass of a dense group's L2 term: its float64 copies stay at 32 MiB
 # arrays with their own path to the minibatch gradient: word rows scattered from node errors, V from its layout
 _NOT_PER_CHUNK = ("L", "LM", "V")
 
@@ -102,8 +113,11 @@ class _Workspace:
 class TreeModelObjective:
     """Loss, gradient and class probabilities of the RNN / RNTN / MV-RNN over flattened batches."""
 
-    def __init__(self, params: Parameters, l2: L2Strengths | None = None, threads: int = 1) -> None:
+    def __init__(self, params: Parameters, l2: L2Strengths | None = None, threads: int = 1,
+                 anchors: dict[str, np.ndarray] | None = None) -> None:
         self.shape = params.shape
+        # word array name -> the values its L2 term pulls toward (absent: toward zero)
+        self.anchors = dict(anchors or {})
         self.use_tensor = self.shape.model == "rntn"
         self.use_matrices = self.shape.model == "mvrnn"
         self.l2 = l2 or L2Strengths()
@@ -188,12 +202,13 @@ class TreeModelObjective:
 
     # --- public --------------------------------------------------------------------------------------
 
-    def loss_and_gradient(self, params: Parameters, grads: Parameters, chunks: list[FlatBatch],
+    def loss_and_gradient(self, params: Parameters, grads: Gradient, chunks: list[FlatBatch],
                           include_l2: bool = True) -> float:
         """J of the minibatch made of ``chunks``; writes dJ/dtheta into ``grads`` (zeroed here first).
 
         ``include_l2=False`` leaves the L2 term out of both (the training loop adds it inside the
-        optimiser's single pass, AdaGrad.step_with_l2).
+        optimiser's single pass, AdaGrad.step_with_l2). The word rows of ``grads`` are set to the
+        minibatch's touched rows.
         """
         n_trees = sum(c.n_trees for c in chunks)
         scale = 1.0 / n_trees
@@ -216,6 +231,9 @@ class TreeModelObjective:
 
         # reduce in chunk order: bitwise independent of the thread count
         grads.zero_()
+        rows = touched_rows([c.word[c.leaves] for c in chunks])
+        for word_rows in grads.rows.values():
+            word_rows.reset(rows)
         loss = 0.0
         for k, batch in enumerate(chunks):
             loss += losses[k]
@@ -224,21 +242,36 @@ class TreeModelObjective:
             if self.use_tensor:
                 add_symmetric_layout_gradient(grads.V, self._dVsym[k])
             ws = self._slot(k)
-            scatter_word_gradients(grads.L, ws.buffers["E"], batch.word, batch.leaves)
+            slot = np.searchsorted(rows, batch.word[batch.leaves])  # each leaf's row among the touched rows
+            scatter_word_rows(grads.rows["L"].values, ws.buffers["E"], slot, batch.leaves)
             if self.use_matrices:  # dLM[w] += EM[leaf], a word matrix as one row of d*d numbers
-                dLM = grads.LM.reshape(grads.LM.shape[0], -1)
-                scatter_word_gradients(dLM, ws.buffers["EM"], batch.word, batch.leaves)
-        return loss + self.add_l2(params, grads) if include_l2 else loss
+                scatter_word_rows(grads.rows["LM"].values, ws.buffers["EM"].reshape(-1, grads.rows["LM"].width),
+                                  slot, batch.leaves)
+        return loss + self.add_l2(params, grads, rows) if include_l2 else loss
 
-    def add_l2(self, params: Parameters, grads: Parameters | None) -> float:
-        """Add the L2 term: returns sum_g lambda_g/2 ||theta_g||^2, adds lambda_g theta_g to ``grads``."""
+    def add_l2(self, params: Parameters, grads: Gradient | None, rows: np.ndarray) -> float:
+        """Add the L2 term: returns its value (module docstring), adds its gradient to ``grads``.
+
+        ``rows``: the minibatch's distinct word ids, ascending (the word arrays' touched rows).
+        """
         penalty = 0.0
         for name in params.names():
             lam = self.l2.of(L2_GROUP[name])
             if lam == 0.0:
                 continue
-            theta = params[name].reshape(-1)
-            for a in range(0, theta.size, L2_BLOCK):  # in blocks: no full-size temporary of a large LM or L
+            theta = params[name]
+            if name in WORD_ROW_NAMES:
+                width = int(np.prod(theta.shape[1:]))
+                anchor = self.anchors.get(name, theta[:0]).reshape(-1, width)
+                if grads is not None:
+                    values = grads.rows[name].values
+                else:  # forward only: the same sums, into a scratch gradient
+                    values = np.zeros((rows.shape[0], width), dtype=theta.dtype)
+                squares = word_rows_l2(values, theta.reshape(-1, width), rows, anchor, theta.dtype.type(lam))
+                penalty += 0.5 * lam * squares
+                continue
+            theta = theta.reshape(-1)
+            for a in range(0, theta.size, L2_BLOCK):  # in blocks: no full-size temporary of a large group
                 part = theta[a : a + L2_BLOCK]
                 part64 = part.astype(np.float64)
                 penalty += 0.5 * lam * float(np.dot(part64, part64))
@@ -281,4 +314,4 @@ class TreeModelObjective:
         total = 0.0
         for k, batch in enumerate(chunks):
             total += self._forward_chunk(params, batch, self._slot(k), 1.0 / n_trees)[0]
-        return total + self.add_l2(params, None)
+        return total + self.add_l2(params, None, touched_rows([c.word[c.leaves] for c in chunks]))

@@ -1,40 +1,48 @@
-"""Model parameters: one flat buffer with named, shaped views.
+"""Model parameters: what each one is, one flat buffer with named views, and the gradient.
 
 Legend: |V| vocabulary size, d vector size, D = 2d, C classes.
 
-    name  shape        meaning                                   L2 group
-    L     (|V|, d)     word vectors, row 0 = unknown word        words
-    W     (d, D)       composition matrix                        compose
-    b     (d,)         composition bias                          (none)
-    V     (d, D, D)    composition tensor (RNTN only)            tensor
-    LM    (|V|, d, d)  word matrices, row 0 = unknown word       word_matrices   (MV-RNN only)
-    WM    (d, D)       matrix composition: P = WM [P_l ; P_r]    compose         (MV-RNN only)
-    Ws    (C, d)       classifier weights                        classifier
-    bs    (C,)         classifier bias                           (none)
+Every parameter is declared once, in :data:`PARAMETERS` (a :class:`ParameterSpec`): its
+math symbol (used in the code and the docstrings), the name of its dataset in checkpoint
+files, its shape, its L2 group, whether it has one row per vocabulary word, and a
+description. Which parameters a model has, in which order, is :data:`MODEL_PARAMETERS`.
+Everything else (L2 strengths, checkpoint layout and descriptions, the memory estimate)
+is derived from these.
 
-Models: "rnn" (L, W, b, Ws, bs), "rntn" (+ V; Socher et al. 2013), "mvrnn" (+ LM, WM;
-Socher, Huval, Manning & Ng 2012).
+    symbol  stored as                  shape        L2 group
+    L       word_vectors               (|V|, d)     words          row 0 = unknown word
+    W       composition_matrix         (d, D)       compose
+    b       composition_bias           (d,)         (none)
+    V       composition_tensor         (d, D, D)    tensor         RNTN only
+    LM      word_matrices              (|V|, d, d)  word_matrices  MV-RNN only
+    WM      phrase_matrix_composition  (d, D)       compose        MV-RNN only: P = WM [P_l ; P_r]
+    Ws      classifier_weights         (C, d)       classifier
+    bs      classifier_bias            (C,)         (none)
+
+Models: "rnn" (L, W, b, Ws, bs), "rntn" (+ V; RNTN, 2013), "mvrnn" (+ LM, WM; MV-RNN, 2012).
 
 Because every array is a view of one contiguous buffer, the optimiser and the
-checkpoint writer treat all of them as one vector; a gradient is the same
-structure filled with zeros (:meth:`Parameters.zeros_like`).
+checkpoint writer treat all of them as one vector. A gradient (:class:`Gradient`) keeps
+the same layout for the dense arrays (W, b, V, WM, Ws, bs) in one flat buffer, but holds
+the word arrays (L, LM: one row per vocabulary word) as the rows a minibatch touched
+only, so a training step costs what its trees touch, whatever the vocabulary size.
 
 Initialisation (seeded, documented in README):
     L  ~ U(-0.1, 0.1)
     W  ~ 0.5 [I I] + U(-r, r),  r = 1/sqrt(D)   (starts near the average of the children)
     V  ~ U(-1/D, 1/D)                           (small: the model starts close to the RNN)
-    Ws ~ U(-s, s),  s = sqrt(6 / (C + d))        (Glorot & Bengio 2010)
+    Ws ~ U(-s, s),  s = sqrt(6 / (C + d))        (uniform fan-in/fan-out scaling, 2010)
     LM[w] = I + U(-0.01, 0.01) elementwise      (near the identity: x = [B a ; A b] starts as [a ; b])
     WM ~ 0.5 [I I] + U(-r, r),  r = 1/sqrt(D)   (like W: a node's matrix starts near the children's average)
     b, bs = 0
 The draws come from one generator in this order: L, W, V (RNTN), Ws, then LM (word by
 word, row order) and WM (MV-RNN). The MV-RNN's arrays are drawn after all the others,
-so the arrays the models share (L, W, Ws) are identical for one seed, and the RNN and
-RNTN draws are the same as before the MV-RNN existed. Socher et al. 2012 start the word
-matrices at the identity plus small noise (from memory); the width 0.01 is our choice.
+so the arrays the models share (L, W, Ws) are identical for one seed. The MV-RNN's
+publication starts the word matrices at the identity plus small noise (from memory);
+the width 0.01 is our choice.
 
 Memory: an MV-RNN holds |V| d^2 numbers in LM alone (100,000 words at d = 25 are 62.5
-million per copy, and training keeps three copies: parameters, gradient, AdaGrad sums).
+million per copy; training keeps two full copies, parameters and AdaGrad sums).
 :func:`check_memory` refuses a model whose training state would exceed a limit, with the
 estimate and what to change.
 """
@@ -45,30 +53,62 @@ from dataclasses import dataclass
 
 import numpy as np
 
-MODELS = ("rnn", "rntn", "mvrnn")
 DTYPES = {"float32": np.float32, "float64": np.float64}
 
-# which L2 group regularises each parameter (None: not regularised)
-L2_GROUP = {"L": "words", "W": "compose", "b": None, "V": "tensor", "LM": "word_matrices", "WM": "compose",
-            "Ws": "classifier", "bs": None}
+
+@dataclass(frozen=True)
+class ParameterSpec:
+    """Everything about one parameter array, said once."""
+
+    symbol: str  # math symbol, as in the equations and the code (params.W)
+    stored_as: str  # dataset name in checkpoint files
+    dims: str  # shape in the legend's letters: "V d" is (|V|, d); "d D D" is (d, 2d, 2d)
+    l2_group: str | None  # which L2 strength applies (None: not regularised)
+    word_rows: bool  # one row per vocabulary word (its gradient is the minibatch's rows only)
+    description: str  # what it is, with its equation
+
+    def shape(self, vocab_size: int, dim: int, num_classes: int) -> tuple[int, ...]:
+        sizes = {"V": vocab_size, "d": dim, "D": 2 * dim, "C": num_classes}
+        return tuple(sizes[letter] for letter in self.dims.split())
+
+
+PARAMETERS = {spec.symbol: spec for spec in (
+    ParameterSpec("L", "word_vectors", "V d", "words", True,
+                  "word vectors L, one row per vocabulary id (row 0: unknown word); a leaf's p = L[w]"),
+    ParameterSpec("W", "composition_matrix", "d D", "compose", False,
+                  "composition matrix W, d x 2d: p = tanh(W [p_left ; p_right] + b (+ h))"),
+    ParameterSpec("b", "composition_bias", "d", None, False, "composition bias b, d"),
+    ParameterSpec("V", "composition_tensor", "d D D", "tensor", False,
+                  "composition tensor V, d x 2d x 2d: h_k = x^T V[k] x with x = [p_left ; p_right] (RNTN)"),
+    ParameterSpec("LM", "word_matrices", "V d d", "word_matrices", True,
+                  "word matrices LM, |V| x d x d (row 0: unknown word); a leaf's matrix P = LM[w] (MV-RNN)"),
+    ParameterSpec("WM", "phrase_matrix_composition", "d D", "compose", False,
+                  "phrase-matrix composition WM, d x 2d: P = WM [P_left ; P_right] (MV-RNN)"),
+    ParameterSpec("Ws", "classifier_weights", "C d", "classifier", False,
+                  "classifier weights Ws, C x d: y = softmax(Ws p + bs) at every node"),
+    ParameterSpec("bs", "classifier_bias", "C", None, False, "classifier bias bs, C"),
+)}
+
+# the parameters of each model, in the order of the flat buffer
+MODEL_PARAMETERS = {
+    "rnn": ("L", "W", "b", "Ws", "bs"),
+    "rntn": ("L", "W", "b", "V", "Ws", "bs"),
+    "mvrnn": ("L", "W", "b", "LM", "WM", "Ws", "bs"),
+}
+MODELS = tuple(MODEL_PARAMETERS)
+
+# which L2 group regularises each parameter (None: not regularised), and the word arrays
+L2_GROUP = {symbol: spec.l2_group for symbol, spec in PARAMETERS.items()}
+WORD_ROW_NAMES = tuple(symbol for symbol, spec in PARAMETERS.items() if spec.word_rows)
 
 WORD_MATRIX_NOISE = 0.01  # LM[w] = I + U(-WORD_MATRIX_NOISE, WORD_MATRIX_NOISE) at initialisation
 
 
 def parameter_shapes(model: str, vocab_size: int, dim: int, num_classes: int) -> dict[str, tuple[int, ...]]:
     """Ordered name -> shape of every parameter array of ``model``."""
-    if model not in MODELS:
+    if model not in MODEL_PARAMETERS:
         raise ValueError(f"unknown model {model!r}: expected one of {', '.join(MODELS)}")
-    d, D = dim, 2 * dim
-    shapes = {"L": (vocab_size, d), "W": (d, D), "b": (d,)}
-    if model == "rntn":
-        shapes["V"] = (d, D, D)
-    if model == "mvrnn":
-        shapes["LM"] = (vocab_size, d, d)
-        shapes["WM"] = (d, D)
-    shapes["Ws"] = (num_classes, d)
-    shapes["bs"] = (num_classes,)
-    return shapes
+    return {symbol: PARAMETERS[symbol].shape(vocab_size, dim, num_classes) for symbol in MODEL_PARAMETERS[model]}
 
 
 @dataclass(frozen=True)
@@ -88,9 +128,16 @@ class ModelShape:
         """Number of scalar parameters."""
         return int(sum(np.prod(s) for s in self.shapes().values()))
 
-    def training_bytes(self) -> int:
-        """Parameters + gradient + AdaGrad sums, in bytes (workspaces excluded)."""
-        return 3 * self.count() * np.dtype(DTYPES[self.dtype]).itemsize
+    def dense_count(self) -> int:
+        """Number of scalars outside the word arrays (the size of a gradient's dense buffer)."""
+        return int(sum(np.prod(s) for name, s in self.shapes().items() if name not in WORD_ROW_NAMES))
+
+    def training_bytes(self, anchored_words: bool = False) -> int:
+        """Parameters + AdaGrad sums + the gradient's dense buffer, in bytes (workspaces and the
+        minibatch's word rows excluded); plus a copy of L when L2 pulls word vectors toward their
+        starting values (``anchored_words``)."""
+        anchor = int(np.prod(self.shapes()["L"])) if anchored_words else 0
+        return (2 * self.count() + self.dense_count() + anchor) * np.dtype(DTYPES[self.dtype]).itemsize
 
 
 class Parameters:
@@ -137,8 +184,94 @@ class Parameters:
         return Parameters(self.shape, self.flat.copy())
 
     def zero_(self) -> None:
-        """The one explicit zeroing step of a gradient buffer."""
+        """Set every element to zero (AdaGrad's reset of its sums, tests)."""
         self.flat[:] = 0
+
+
+class WordRows:
+    """The gradient of one word array (L or LM) at the rows a minibatch touched.
+
+    ``rows`` (n,) int64: distinct word ids, ascending (a fixed order, so results never depend
+    on how the minibatch was split or threaded); ``values`` (n, width): the gradient of those
+    rows, width = d for L and d*d for LM. Storage grows once to the largest n seen.
+    """
+
+    def __init__(self, width: int, dtype: np.dtype) -> None:
+        self.width = width
+        self._buffer = np.zeros((16, width), dtype=dtype)
+        self.rows = np.zeros(0, dtype=np.int64)
+        self.values = self._buffer[:0]
+
+    def reset(self, rows: np.ndarray) -> None:
+        """Hold the rows ``rows`` (sorted, distinct), with zero gradient."""
+        n = rows.shape[0]
+        if n > self._buffer.shape[0]:
+            self._buffer = np.zeros((max(n, 2 * self._buffer.shape[0]), self.width), dtype=self._buffer.dtype)
+        self.rows = rows.astype(np.int64, copy=False)
+        self.values = self._buffer[:n]
+        self.values[...] = 0
+
+    def clear(self) -> None:
+        self.reset(np.zeros(0, dtype=np.int64))
+
+
+class Gradient:
+    """dJ/dtheta for a minibatch: dense arrays in one flat buffer with named views, word arrays as rows.
+
+    ``grads.W`` / ``grads["W"]`` are views of the dense buffer ``grads.flat``; ``grads.rows["L"]``
+    (and ``["LM"]`` for the MV-RNN) is a :class:`WordRows`. :meth:`dense` builds the full-size
+    array of any name, for checks and tests (it allocates |V| rows: never on the training path).
+    """
+
+    def __init__(self, shape: ModelShape) -> None:
+        self.shape = shape
+        dtype = DTYPES[shape.dtype]
+        shapes = shape.shapes()
+        self.flat = np.zeros(shape.dense_count(), dtype=dtype)
+        self.views: dict[str, np.ndarray] = {}
+        self.rows: dict[str, WordRows] = {}
+        offset = 0
+        for name, s in shapes.items():
+            if name in WORD_ROW_NAMES:
+                self.rows[name] = WordRows(int(np.prod(s[1:])), dtype)
+                continue
+            n = int(np.prod(s))
+            self.views[name] = self.flat[offset : offset + n].reshape(s)
+            offset += n
+
+    def names(self) -> list[str]:
+        return list(self.shape.shapes())
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        if name in self.rows:
+            raise KeyError(f"{name} is held as touched rows: use .rows[{name!r}] or .dense({name!r})")
+        return self.views[name]
+
+    def __setitem__(self, name: str, value: np.ndarray) -> None:
+        # `grads[name] += g` adds in place into the view, then assigns it back: nothing to copy
+        if value is not self[name]:
+            raise ValueError(f"assign gradients in place (grads[{name!r}] += ...), not by replacing the view")
+
+    def __getattr__(self, name: str) -> np.ndarray:
+        views = self.__dict__.get("views")
+        if views is not None and name in views:
+            return views[name]
+        raise AttributeError(name)
+
+    def dense(self, name: str) -> np.ndarray:
+        """A full-size copy of the gradient of ``name`` (zero in the rows the minibatch did not touch)."""
+        if name not in self.rows:
+            return self.views[name].copy()
+        shape = self.shape.shapes()[name]
+        out = np.zeros((shape[0], self.rows[name].width), dtype=self.flat.dtype)
+        out[self.rows[name].rows] = self.rows[name].values
+        return out.reshape(shape)
+
+    def zero_(self) -> None:
+        """The one explicit zeroing step: dense buffer to zero, no word rows."""
+        self.flat[:] = 0
+        for rows in self.rows.values():
+            rows.clear()
 
 
 def init_parameters(shape: ModelShape, rng: np.random.Generator) -> Parameters:
@@ -172,14 +305,15 @@ def format_bytes(n: float) -> str:
     return f"{n / 2**30:.2f} GiB" if n >= 2**30 else f"{n / 2**20:.1f} MiB"
 
 
-def check_memory(shape: ModelShape, limit_bytes: float) -> int:
+def check_memory(shape: ModelShape, limit_bytes: float, anchored_words: bool = False) -> int:
     """The estimated training memory of ``shape`` in bytes; MemoryLimitError if above ``limit_bytes``.
 
-    The estimate is :meth:`ModelShape.training_bytes`: parameters + gradient + AdaGrad sums
-    (the objective's per-chunk workspaces, a few MiB for usual batches, are not counted).
+    The estimate is :meth:`ModelShape.training_bytes`: parameters + AdaGrad sums + the gradient's
+    dense part (+ the starting word vectors when ``anchored_words``); the objective's per-chunk
+    workspaces and the minibatch's word rows, a few MiB for usual batches, are not counted.
     ``limit_bytes <= 0`` means no limit.
     """
-    need = shape.training_bytes()
+    need = shape.training_bytes(anchored_words)
     if limit_bytes <= 0 or need <= limit_bytes:
         return need
     shapes = shape.shapes()
@@ -187,7 +321,7 @@ def check_memory(shape: ModelShape, limit_bytes: float) -> int:
     share = int(np.prod(shapes[largest])) / shape.count()
     raise MemoryLimitError(
         f"{shape.model} with d={shape.dim} and a vocabulary of {shape.vocab_size:,} words needs about "
-        f"{format_bytes(need)} for parameters, gradient and AdaGrad sums ({shape.count():,} {shape.dtype} "
+        f"{format_bytes(need)} for parameters, AdaGrad sums and gradient ({shape.count():,} {shape.dtype} "
         f"parameters, {share:.0%} of them in {largest} {shapes[largest]}), above the limit of "
         f"{format_bytes(limit_bytes)}: raise --min-count for a smaller vocabulary, lower --dim, "
         f"or raise the limit with --max-memory-gb")

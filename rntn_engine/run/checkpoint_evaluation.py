@@ -22,7 +22,7 @@ from typing import Callable
 import numpy as np
 
 from rntn_engine.data.batches import EncodedTreebank, bank_slice, concatenate_banks, phrase_lengths
-from rntn_engine.data.checkpoint_file import CheckpointError
+from rntn_engine.data.checkpoint_file import CheckpointError, CheckpointUnavailableError
 from rntn_engine.data.errors import InputError
 from rntn_engine.data.treebank_encoding import iter_encoded_blocks
 from rntn_engine.data.treebank_stats import PHRASE_LENGTH_BUCKETS, phrase_length_bucket_index
@@ -185,7 +185,7 @@ def evaluate_checkpoint(path: str, treebanks: list[str], neutral: int | None = -
         progress = _PROGRESS_QUEUE.put
     try:
         checkpoint = load_checkpoint(path)
-    except (CheckpointError, OSError) as exc:
+    except (CheckpointError, CheckpointUnavailableError, OSError) as exc:
         return [EvaluationRow(str(path), tb, error=str(exc)) for tb in treebanks]
     state = checkpoint.state or {}
     step, epoch = state.get("step"), state.get("epoch")

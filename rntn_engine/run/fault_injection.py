@@ -1,9 +1,21 @@
-"""Test-only fault injection in the checkpoint writer, driven by environment variables.
+"""Test-only fault injection in the training loop and the checkpoint writer, driven by environment variables.
 
-    RNTN_FAULT_POINT   before_open | mid_write | before_fsync | before_rename | after_rename | mid_prune
-    RNTN_FAULT_AFTER   act on the Nth time that point is reached in this process (default 1)
+    RNTN_FAULT_POINT   where: step (a training step's update is done, before any checkpoint of
+                       that step) | data_loaded (after the treebanks are read) | final_model (just
+                       before the final model file is written) | run_file:NAME (before a write of
+                       the run file NAME: config.toml, metrics.jsonl, progress.json) | checkpoint
+                       writes: before_open | mid_write | before_fsync | before_rename | after_rename
+                       | mid_prune; several points separated by commas
+    RNTN_FAULT_AFTER   act on the Nth time that point is reached in this process (default 1);
+                       one number for every point, or one per point, separated by commas
     RNTN_FAULT_ACTION  kill (SIGKILL this process) | term (SIGTERM this process, then carry on)
-                       | enospc (raise "No space left on device")
+                       | int (SIGINT this process, then carry on) | enospc (raise "No space left
+                       on device"); one for every point, or one per point, separated by commas
+
+Each point counts its own hits. Example: ``RNTN_FAULT_POINT=step,mid_write``,
+``RNTN_FAULT_AFTER=4,3``, ``RNTN_FAULT_ACTION=int`` sends SIGINT after the 4th step and again
+in the middle of the 3rd checkpoint write (the one that first SIGINT asked for, when two
+were written before).
 
 Unset in normal use: then :func:`fault_from_environment` returns None and costs nothing.
 """
@@ -14,25 +26,45 @@ import errno
 import os
 import signal
 
+POINTS = ("step", "data_loaded", "final_model", "before_open", "mid_write", "before_fsync", "before_rename",
+          "after_rename", "mid_prune")
+RUN_FILE_POINT = "run_file:"  # followed by the run file's name: run_file:config.toml
+ACTIONS = ("kill", "term", "int", "enospc")
+
+
+def _per_point(text: str, n: int, name: str) -> list[str]:
+    values = [v.strip() for v in text.split(",")]
+    if len(values) == 1:
+        return values * n
+    if len(values) != n:
+        raise ValueError(f"{name} has {len(values)} values for {n} fault points")
+    return values
+
 
 def fault_from_environment():
-    point = os.environ.get("RNTN_FAULT_POINT")
-    if not point:
+    spec = os.environ.get("RNTN_FAULT_POINT")
+    if not spec:
         return None
-    after = int(os.environ.get("RNTN_FAULT_AFTER", "1"))
-    action = os.environ.get("RNTN_FAULT_ACTION", "kill")
-    seen = {"n": 0}
+    points = [p.strip() for p in spec.split(",")]
+    afters = [int(a) for a in _per_point(os.environ.get("RNTN_FAULT_AFTER", "1"), len(points), "RNTN_FAULT_AFTER")]
+    actions = _per_point(os.environ.get("RNTN_FAULT_ACTION", "kill"), len(points), "RNTN_FAULT_ACTION")
+    for point, action in zip(points, actions):
+        if (point not in POINTS and not point.startswith(RUN_FILE_POINT)) or action not in ACTIONS:
+            raise ValueError(f"unknown fault point {point!r} or action {action!r}")
+    plan = {point: (after, action) for point, after, action in zip(points, afters, actions)}
+    seen = {point: 0 for point in plan}
 
     def hit(where: str) -> None:
-        if where != point:
+        if where not in plan:
             return
-        seen["n"] += 1
-        if seen["n"] != after:
+        seen[where] += 1
+        after, action = plan[where]
+        if seen[where] != after:
             return
         if action == "kill":
             os.kill(os.getpid(), signal.SIGKILL)
-        if action == "term":
-            os.kill(os.getpid(), signal.SIGTERM)
+        if action in ("term", "int"):
+            os.kill(os.getpid(), signal.SIGTERM if action == "term" else signal.SIGINT)
             return
         raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
 

@@ -24,23 +24,13 @@ import numpy as np
 
 from rntn_engine.data.batches import encode_treebank
 from rntn_engine.data.bracket_tokens import SEPARATORS, unescape_token
-from rntn_engine.data.tree import UNLABELLED, Tree, tree_from_arrays
+from rntn_engine.data.tree import Tree, right_branching_tree
 from rntn_engine.data.treebank_reader import RecordAssembler, parse_record
 from rntn_engine.model.objective import TreeModelObjective, split_into_chunks
 from rntn_engine.run.checkpoints import Checkpoint
 from rntn_engine.run.evaluation import PREDICT_CHUNKS
 
 BLOCK_LINES = 256  # lines predicted together (one forward call)
-
-
-def right_branching_tree(words: list[str], source: str = "") -> Tree:
-    """The fallback tree (module docstring), all nodes unlabelled, in post-order."""
-    n = len(words)
-    # post-order of (w1 (w2 (... (w_{n-1} w_n)))): all leaves first, then parents from the innermost out
-    word = list(range(n)) + [-1] * (n - 1)
-    left = [-1] * n + [n - 2 - k for k in range(n - 1)]
-    right = [-1] * n + [n - 1 if k == 0 else n + k - 1 for k in range(n - 1)]
-    return tree_from_arrays(words, word, left, right, [UNLABELLED] * (2 * n - 1), source)
 
 
 @dataclass

@@ -22,7 +22,7 @@ import numpy as np
 from rntn_engine.data.batches import EncodedTreebank
 from rntn_engine.data.vocabulary import Vocabulary
 from rntn_engine.data.word_vectors import load_vectors_for, read_top_words, vectors_to_matrix
-from rntn_engine.run.run_config import ConfigError, TrainConfig
+from rntn_engine.run.run_config import DIM_WITHOUT_VECTORS, ConfigError, TrainConfig
 
 
 def vector_file_dim(config: TrainConfig) -> int:
@@ -32,9 +32,9 @@ def vector_file_dim(config: TrainConfig) -> int:
 
 
 def resolve_dim(config: TrainConfig) -> None:
-    """Fill ``config.dim`` when it is 0 (auto): the vector file's d, else 25; refuse a clash."""
+    """Fill ``config.dim`` when it is 0 (auto): the vector file's d, else DIM_WITHOUT_VECTORS; refuse a clash."""
     if not config.vectors_file:
-        config.dim = config.dim or 25
+        config.dim = config.dim or DIM_WITHOUT_VECTORS
         return
     file_dim = vector_file_dim(config)
     if config.dim and config.dim != file_dim:

@@ -1,18 +1,27 @@
-"""The resolved configuration of a training run: one typed dataclass, one comment per field.
+"""The resolved configuration of a training run: every setting declared once.
 
-Sources, later ones win: the defaults below, a TOML file (``--config FILE``, keys
-named exactly as the fields, either at top level or under a ``[train]`` table),
-then command-line flags. The resolved configuration is saved with every model
-file and checkpoint. Fields marked (shape) fix the size or meaning of the
-parameters and may never change on resume; fields marked (result) change the
-numbers a run produces.
+Each field of :class:`TrainConfig` is one setting: its type (the annotation), its
+default, and in its :func:`setting` metadata the help text, the allowed choices or
+range, and whether ``rntn resume`` may change it. Everything else is derived from this
+one declaration: the options of ``rntn train`` and ``rntn resume`` (cli/config_options.py),
+the TOML loader and type checks (:func:`config_from_mapping`), the per-field validation
+(:meth:`TrainConfig.validate`; rules that tie two settings together follow it), and the
+list of settings a resume may change (:data:`RESUME_CHANGEABLE`).
+
+Sources, later ones win: the defaults below, a TOML file (``--config FILE``, keys named
+exactly as the fields, at top level or under a ``[train]`` table), then command-line
+flags. The resolved configuration is saved with every model file and checkpoint.
+Kinds: "shape" settings fix the size or meaning of the parameters; "result" settings
+change the numbers a run produces; "run" settings change neither (a resume may change
+some of them).
 """
 
 from __future__ import annotations
 
 import dataclasses
+import math
 import sys
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any
 
@@ -24,97 +33,140 @@ else:  # pragma: no cover
 from rntn_engine.model.parameters import DTYPES, MODELS
 from rntn_engine.run.stop_signals import parse_duration
 
-# dev scores a run can select its best checkpoint by (all higher-is-better)
-BEST_METRICS = ("dev_fine_root", "dev_fine_all")
-
-# settings `rntn resume` may change: none of them changes the numbers of the steps already taken
-RESUME_OVERRIDABLE = ("epochs", "time_limit", "threads", "checkpoint_every_steps", "checkpoint_every_minutes",
-                      "keep_checkpoints", "patience", "max_memory_gb")
+# dev scores a run can select its best checkpoint by; all higher-is-better but those in LOWER_IS_BETTER
+BEST_METRICS = ("dev_fine_root", "dev_fine_all", "dev_binary_root", "dev_binary_all", "dev_macro_f1_root",
+                "dev_macro_f1_all", "dev_loss")
+LOWER_IS_BETTER = ("dev_loss",)
+FINAL_MODELS = ("best", "last")  # what model.h5 holds when a run ends
+# what the L2 term on word vectors pulls toward: zero, or each vector's value at the start of the run
+L2_WORDS_TOWARD = ("zero", "start")
+VECTOR_FORMATS = ("auto", "glove", "word2vec-text", "word2vec-binary")
+# d when neither --dim nor a --vectors file gives it. This and the defaults of batch_size, lr and the L2
+# strengths below were chosen by scripts/sweep_defaults.py (README "How the defaults were chosen").
+DIM_WITHOUT_VECTORS = 16
 
 
 class ConfigError(ValueError):
     """A configuration value or file that is not acceptable; the message says which and why."""
 
 
+@dataclass(frozen=True)
+class SettingInfo:
+    """What the one declaration of a setting says besides its type and default."""
+
+    help: str  # one sentence for --help
+    kind: str  # "shape", "result" or "run" (module docstring)
+    flag: str = ""  # command-line spelling ("" = --name-with-dashes; booleans: "--on/--off")
+    choices: tuple = ()  # allowed values ((): any)
+    minimum: float | None = None  # smallest allowed value (inclusive)
+    above: float | None = None  # the value must be strictly greater than this
+    maximum: float | None = None  # largest allowed value (inclusive)
+    resume: bool = False  # `rntn resume` may change it
+    shown_default: str = ""  # how --help shows the default when the value itself would mislead
+
+
+def setting(default: Any, help: str, kind: str, **info: Any) -> Any:
+    """A dataclass field carrying its :class:`SettingInfo`."""
+    return field(default=default, metadata={"setting": SettingInfo(help, kind, **info)})
+
+
 @dataclass
 class TrainConfig:
-    """Every setting of a training run."""
+    """Every setting of a training run (one declaration each: see the module docstring)."""
 
-    train_file: str = ""  # treebank to train on (bracketed trees, one per line)
-    dev_file: str = ""  # treebank scored after every epoch ("" = none)
-    model: str = "rntn"  # (shape) "rnn", "rntn" or "mvrnn"
-    dim: int = 0  # (shape) d, size of word and phrase vectors; 0 = the vector file's, or 25 without one
-    num_classes: int = 5  # (shape) C; labels are 0..C-1
-    epochs: int = 20  # passes over the training trees
-    batch_size: int = 27  # trees per minibatch (25-30 is common practice)
-    lr: float = 0.01  # (result) AdaGrad learning rate
-    adagrad_eps: float = 1e-6  # (result) AdaGrad epsilon in lr * g / (sqrt(G) + eps)
-    adagrad_reset_epochs: int = 0  # (result) forget AdaGrad sums every this many epochs (0 = never)
-    l2_words: float = 1e-4  # (result) L2 strength on word vectors L
-    l2_compose: float = 1e-3  # (result) L2 strength on composition matrix W
-    l2_tensor: float = 1e-3  # (result) L2 strength on composition tensor V
-    l2_classifier: float = 1e-4  # (result) L2 strength on classifier weights Ws
-    l2_word_matrices: float = 1e-4  # (result) L2 strength on word matrices LM (mvrnn)
-    max_memory_gb: float = 8.0  # refuse a model whose parameters + gradient + AdaGrad sums exceed this (0 = no limit)
-    min_count: int = 2  # (shape) training count a word needs for its own vector; rarer -> unknown
-    lowercase: bool = False  # (shape) fold words to lower case
-    binarise: str = "right"  # how n-ary input nodes are binarised: right, left or strict (refuse)
-    seed: int = 0  # (result) seeds initialisation and the shuffle of every epoch
-    dtype: str = "float32"  # (result) float32 or float64 arithmetic
-    grad_chunks: int = 2  # (result) fixed pieces each minibatch is split into; results do not depend on --threads
-    threads: int = 1  # worker threads running chunks; never changes results
-    vectors_file: str = ""  # pretrained word vectors (GloVe text, word2vec text or binary, plain or gzip)
-    vectors_format: str = "auto"  # auto, glove, word2vec-text or word2vec-binary
-    vectors_encoding_errors: str = "strict"  # undecodable bytes in the vector file: strict (error) or replace
-    freeze_vectors: bool = False  # (result) keep the word vectors L fixed during training
-    extend_vocabulary: int = 0  # (shape) add the vector file's first N words to the vocabulary
-    run_dir: str = ""  # output directory ("" = checkpoints/<model>-d<dim>-seed<seed>)
-    checkpoint_every_steps: int = 0  # also checkpoint every this many steps (0 = only by time and epoch)
-    checkpoint_every_minutes: float = 10.0  # also checkpoint when this much wall time passed since the last
-    keep_checkpoints: int = 3  # newest checkpoints kept (the best one is kept in addition)
-    best_metric: str = "dev_fine_root"  # dev score that picks the best checkpoint and drives early stopping
-    patience: int = 0  # stop after this many evaluations without a better best_metric (0 = never)
-    time_limit: str = ""  # wall-clock budget of one invocation, e.g. 23h or 1h30m ("" = none)
+    train_file: str = setting("", "Training treebank: bracketed trees, one per line (stored as an absolute path; "
+                              "a resume accepts its new location if the file moved, same content only).", "run",
+                              resume=True)
+    dev_file: str = setting("", "Treebank scored after every epoch (\"\" = none; a resume accepts its new "
+                            "location, same content only).", "run", resume=True)
+    model: str = setting("rntn", "Model: rnn (matrix composition), rntn (tensor + matrix) or mvrnn (a matrix per "
+                         "word and phrase).", "shape", choices=MODELS)
+    dim: int = setting(0, "Size d of word and phrase vectors.", "shape", minimum=0,
+                       shown_default=f"the --vectors file's, else {DIM_WITHOUT_VECTORS}")
+    num_classes: int = setting(5, "Number of classes C; labels are 0..C-1.", "shape", minimum=2)
+    class_names: str = setting("", "Names of the classes 0..C-1 for tables and figures, separated by commas "
+                               "(\"\" = the class numbers).", "run", resume=True)
+    epochs: int = setting(20, "Passes over the training trees.", "run", minimum=0, resume=True)
+    batch_size: int = setting(16, "Trees per minibatch.", "result", minimum=1)
+    lr: float = setting(0.02, "AdaGrad learning rate.", "result", above=0.0)
+    adagrad_eps: float = setting(1e-6, "AdaGrad epsilon in lr * g / (sqrt(G) + eps).", "result", above=0.0)
+    l2_words: float = setting(1e-5, "L2 strength on word vectors (rows of the minibatch's words).", "result",
+                              minimum=0.0)
+    l2_words_toward: str = setting("zero", "What L2 on word vectors pulls toward: zero, or start (each vector's "
+                                   "starting value, e.g. its pretrained one).", "result", choices=L2_WORDS_TOWARD)
+    l2_compose: float = setting(1e-4, "L2 strength on the composition matrix W (and WM of the mvrnn).", "result",
+                                minimum=0.0)
+    l2_tensor: float = setting(1e-4, "L2 strength on the composition tensor V.", "result", minimum=0.0)
+    l2_classifier: float = setting(1e-4, "L2 strength on the classifier weights.", "result", minimum=0.0)
+    l2_word_matrices: float = setting(1e-3, "L2 strength on the word matrices (mvrnn).", "result", minimum=0.0)
+    max_memory_gb: float = setting(8.0, "Refuse a model whose parameters, AdaGrad sums and gradient need more GiB "
+                                   "(0: no limit).", "run", minimum=0.0, resume=True)
+    min_count: int = setting(2, "Training count a word needs for a vector of its own; rarer words share the "
+                             "unknown-word vector.", "shape", minimum=1)
+    lowercase: bool = setting(False, "Fold words to lower case.", "shape", flag="--lowercase/--keep-case")
+    binarise: str = setting("right", "Nodes with more than two children: right (right-factored), left, or strict "
+                            "(refuse).", "shape", choices=("right", "left", "strict"))
+    seed: int = setting(0, "Seed of initialisation and of every epoch's shuffle.", "result")
+    dtype: str = setting("float32", "Arithmetic: float32 or float64.", "result", choices=tuple(DTYPES))
+    grad_chunks: int = setting(2, "Fixed number of pieces each minibatch is split into; parallelism up to this "
+                               "many threads.", "result", minimum=1)
+    threads: int = setting(1, "Threads that run minibatch chunks; results do not depend on it.", "run", minimum=1,
+                           resume=True)
+    vectors_file: str = setting("", "Start word vectors from this file: GloVe text, word2vec text or binary, plain "
+                                "or gzip (detected).", "shape", flag="--vectors")
+    vectors_format: str = setting("auto", "Force the vector file format.", "run", choices=VECTOR_FORMATS)
+    vectors_encoding_errors: str = setting("strict", "Undecodable bytes in the vector file: strict (error with "
+                                           "location) or replace.", "run", choices=("strict", "replace"))
+    freeze_vectors: bool = setting(False, "Keep the (pretrained) word vectors fixed during training.", "result",
+                                   flag="--freeze-vectors/--train-vectors")
+    extend_vocabulary: int = setting(0, "Add the vector file's first N words (its most frequent) to the "
+                                     "vocabulary.", "shape", minimum=0)
+    run_dir: str = setting("", "Output directory.", "run", shown_default="checkpoints/<model>-d<dim>-seed<seed>")
+    checkpoint_every_steps: int = setting(0, "Also checkpoint every N steps (0: off).", "run", minimum=0,
+                                          resume=True)
+    checkpoint_every_minutes: float = setting(10.0, "Also checkpoint when this many minutes passed since the last "
+                                              "one (0: off).", "run", minimum=0.0, resume=True)
+    keep_checkpoints: int = setting(3, "Newest checkpoints kept; the best one is kept as well.", "run", minimum=1,
+                                    resume=True)
+    best_metric: str = setting("dev_fine_root", "Dev score that picks the best checkpoint (kept as best.h5) and "
+                               "drives early stopping; dev_loss is the lowest, the others the highest.", "run",
+                               choices=BEST_METRICS)
+    final_model: str = setting("best", "What model.h5 holds when the run ends: the best checkpoint by "
+                               "--best-metric, or the last parameters (without a dev file: always the last).",
+                               "run", choices=FINAL_MODELS, resume=True)
+    patience: int = setting(0, "Stop after N evaluations without a better --best-metric (0: never).", "run",
+                            minimum=0, resume=True)
+    time_limit: str = setting("", "Stop cleanly with a checkpoint after this much wall time per session, e.g. 23h, "
+                              "90m, 1h30m (exit code 75, resumable; 0 or \"\" = none).", "run", resume=True)
 
     def validate(self, require_data: bool = True) -> "TrainConfig":
-        def need(ok: bool, message: str) -> None:
-            if not ok:
-                raise ConfigError(message)
-
-        need(bool(self.train_file) or not require_data, "a training treebank is required (--train-file)")
-        need(self.model in MODELS, f"--model must be one of {', '.join(MODELS)}, got {self.model!r}")
-        need(self.dim >= 0, f"--dim must be at least 1, got {self.dim}")
-        need(self.vectors_format in ("auto", "glove", "word2vec-text", "word2vec-binary"),
-             "--vectors-format must be auto, glove, word2vec-text or word2vec-binary")
-        need(self.vectors_encoding_errors in ("strict", "replace"), "--vectors-encoding-errors must be strict or replace")
-        need(self.extend_vocabulary >= 0, "--extend-vocabulary must be 0 or more")
-        need(not (self.extend_vocabulary or self.freeze_vectors) or bool(self.vectors_file),
-             "--extend-vocabulary and --freeze-vectors need --vectors")
-        need(self.num_classes >= 2, f"--num-classes must be at least 2, got {self.num_classes}")
-        need(self.epochs >= 0, f"--epochs must be 0 or more, got {self.epochs}")
-        need(self.batch_size >= 1, f"--batch-size must be at least 1, got {self.batch_size}")
-        need(self.lr > 0, f"--lr must be positive, got {self.lr}")
-        need(self.adagrad_eps > 0, f"adagrad_eps must be positive, got {self.adagrad_eps}")
-        need(self.adagrad_reset_epochs >= 0, "adagrad_reset_epochs must be 0 or more")
-        need(self.max_memory_gb >= 0, "--max-memory-gb must be 0 or more")
-        for name in ("l2_words", "l2_compose", "l2_tensor", "l2_classifier", "l2_word_matrices"):
-            need(getattr(self, name) >= 0, f"{name} must be 0 or more, got {getattr(self, name)}")
-        need(self.min_count >= 1, f"--min-count must be at least 1, got {self.min_count}")
-        need(self.binarise in ("right", "left", "strict"), "--binarise must be right, left or strict")
-        need(self.dtype in DTYPES, f"--dtype must be one of {', '.join(DTYPES)}, got {self.dtype!r}")
-        need(self.grad_chunks >= 1, f"grad_chunks must be at least 1, got {self.grad_chunks}")
-        need(self.threads >= 1, f"--threads must be at least 1, got {self.threads}")
-        need(self.checkpoint_every_steps >= 0, "--checkpoint-every-steps must be 0 or more")
-        need(self.checkpoint_every_minutes >= 0, "--checkpoint-every-minutes must be 0 or more")
-        need(self.keep_checkpoints >= 1, "--keep-checkpoints must be at least 1")
-        need(self.best_metric in BEST_METRICS, f"--best-metric must be one of {', '.join(BEST_METRICS)}")
-        need(self.patience >= 0, "--patience must be 0 or more")
+        """Check every setting against its declaration, then the rules that tie settings together."""
+        for f in fields(self):
+            problem = value_problem(f, getattr(self, f.name))
+            if problem:
+                raise ConfigError(problem)
         if self.time_limit:
             try:
                 parse_duration(self.time_limit)
             except ValueError as exc:
                 raise ConfigError(f"--time-limit: {exc}") from None
+        if require_data and not self.train_file:
+            raise ConfigError("a training treebank is required (--train-file)")
+        if self.class_names and len(self.names_of_classes()) != self.num_classes:
+            raise ConfigError(f"--class-names gives {len(self.names_of_classes())} names for {self.num_classes} "
+                              f"classes: give one name per class, separated by commas")
+        if self.class_names and (len(set(self.names_of_classes())) != self.num_classes
+                                 or not all(self.names_of_classes())):
+            raise ConfigError("--class-names: every class needs a name of its own (a name is repeated or empty)")
+        if (self.extend_vocabulary or self.freeze_vectors) and not self.vectors_file:
+            raise ConfigError("--extend-vocabulary and --freeze-vectors need --vectors")
         return self
+
+    def names_of_classes(self) -> list[str]:
+        """The name of each class 0..C-1: from class_names, else the class numbers."""
+        if not self.class_names:
+            return [str(c) for c in range(self.num_classes)]
+        return [name.strip() for name in self.class_names.split(",")]
 
     def resolved_run_dir(self) -> Path:
         if self.run_dir:
@@ -138,31 +190,62 @@ class TrainConfig:
         return "\n".join(lines) + "\n"
 
 
+def info_of(f: dataclasses.Field) -> SettingInfo:
+    return f.metadata["setting"]
+
+
+def flag_of(f: dataclasses.Field) -> str:
+    """The primary command-line spelling of a setting (``--name-with-dashes`` unless declared)."""
+    return (info_of(f).flag or "--" + f.name.replace("_", "-")).split("/")[0]
+
+
+def value_problem(f: dataclasses.Field, value: Any) -> str:
+    """Why ``value`` is not allowed for setting ``f`` ("" when it is)."""
+    info = info_of(f)
+    flag = flag_of(f)
+    if info.choices and value not in info.choices:
+        return f"{flag} must be one of {', '.join(map(str, info.choices))}, got {value!r}"
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        if isinstance(value, float) and not math.isfinite(value):
+            return f"{flag} must be a finite number, got {value!r}"
+        if info.minimum is not None and value < info.minimum:
+            return f"{flag} must be at least {info.minimum:g}, got {value!r}"
+        if info.above is not None and value <= info.above:
+            return f"{flag} must be greater than {info.above:g}, got {value!r}"
+        if info.maximum is not None and value > info.maximum:
+            return f"{flag} must be at most {info.maximum:g}, got {value!r}"
+    return ""
+
+
+# settings `rntn resume` may change: none of them changes the numbers of the steps already taken
+RESUME_CHANGEABLE = tuple(f.name for f in fields(TrainConfig) if info_of(f).resume)
+
+
 def config_differences(a: TrainConfig, b: TrainConfig, ignore: tuple[str, ...] = ()) -> list[str]:
     """Names of the settings whose values differ between ``a`` and ``b``."""
     return [f.name for f in fields(TrainConfig) if f.name not in ignore and getattr(a, f.name) != getattr(b, f.name)]
 
 
 def config_from_mapping(values: dict[str, Any], base: TrainConfig | None = None, source: str = "") -> TrainConfig:
-    """A copy of ``base`` with ``values`` applied, type-checked field by field."""
+    """A copy of ``base`` with ``values`` applied, type-checked field by field against the declaration."""
     config = dataclasses.replace(base) if base is not None else TrainConfig()
     known = {f.name: f for f in fields(TrainConfig)}
     where = f"{source}: " if source else ""
     for key, value in values.items():
         if key not in known:
             raise ConfigError(f"{where}unknown setting {key!r} (known: {', '.join(known)})")
-        default = getattr(TrainConfig(), key)
-        if isinstance(default, bool):
+        kind = known[key].type if isinstance(known[key].type, type) else type(known[key].default)
+        if kind is bool:
             ok = isinstance(value, bool)
-        elif isinstance(default, int):
+        elif kind is int:
             ok = isinstance(value, int) and not isinstance(value, bool)
-        elif isinstance(default, float):
+        elif kind is float:
             ok = isinstance(value, (int, float)) and not isinstance(value, bool)
             value = float(value) if ok else value
         else:
             ok = isinstance(value, str)
         if not ok:
-            raise ConfigError(f"{where}setting {key!r} expects {type(default).__name__}, got {value!r}")
+            raise ConfigError(f"{where}setting {key!r} expects {kind.__name__}, got {value!r}")
         setattr(config, key, value)
     return config
 

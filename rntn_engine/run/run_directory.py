@@ -6,8 +6,10 @@
       progress.json                   heartbeat of the living trainer (step, epoch, speed), every few seconds
       metrics.jsonl                   one JSON line per evaluation
       checkpoint-step000000112.h5     checkpoints, named by step (newest = largest step)
-      model.h5                        the final model, written when the run finishes
-      .checkpoint-step....h5.PID.tmp  leftovers of an interrupted write (cleaned on resume)
+      best.h5                         the best checkpoint so far by the run's --best-metric
+      model.h5                        the final model, written when the run finishes: the best
+                                      checkpoint (--final-model best, the default) or the last
+      .NAME.PID.rntn-tmp              leftovers of an interrupted write (cleaned on resume)
 
 Exclusivity: an exclusive ``flock`` on run.lock. The kernel releases it when the
 process dies in any way (SIGKILL and out-of-memory included), so a stale lock of
@@ -16,6 +18,7 @@ a dead trainer is simply taken over by the next one.
 
 from __future__ import annotations
 
+import errno
 import fcntl
 import json
 import os
@@ -25,7 +28,7 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
-from rntn_engine.data.checkpoint_file import fsync_directory, is_our_temp_file
+from rntn_engine.data.atomic_files import fsync_directory, is_our_temp_file, write_atomically
 from rntn_engine.run.run_errors import RunDirectoryError
 
 CONFIG_FILE = "config.toml"
@@ -33,6 +36,7 @@ LOCK_FILE = "run.lock"
 PROGRESS_FILE = "progress.json"
 METRICS_FILE = "metrics.jsonl"
 MODEL_FILE = "model.h5"
+BEST_FILE = "best.h5"  # the best checkpoint by the run's best_metric (the same file, hard-linked where possible)
 CHECKPOINT_PATTERN = re.compile(r"^checkpoint-step(\d{9,})\.h5$")
 
 
@@ -102,7 +106,11 @@ class RunLock:
         self._fd: int | None = None
 
     def acquire(self) -> "RunLock":
-        fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
+        try:  # never through a symbolic link: it could point at a file of someone else's
+            fd = os.open(self.path, os.O_RDWR | os.O_CREAT | os.O_NOFOLLOW | getattr(os, "O_CLOEXEC", 0), 0o644)
+        except OSError as exc:
+            what = "is a symbolic link; remove it" if exc.errno == errno.ELOOP else (exc.strerror or str(exc))
+            raise RunDirectoryError(f"{self.path}: cannot take the run's lock ({what})") from None
         try:
             fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
         except OSError:
@@ -110,9 +118,12 @@ class RunLock:
             os.close(fd)
             raise RunDirectoryError(f"{self.path.parent}: another trainer is running in this run directory"
                                     f"{holder}; wait for it or stop it first") from None
-        os.ftruncate(fd, 0)
-        os.write(fd, json.dumps({"pid": os.getpid(), "host": socket.gethostname(),
-                                 "since": time.time()}).encode())
+        try:
+            os.ftruncate(fd, 0)
+            os.write(fd, json.dumps({"pid": os.getpid(), "host": socket.gethostname(),
+                                     "since": time.time()}).encode())
+        except OSError:
+            pass  # the holder's name is a courtesy; the flock is the lock
         self._fd = fd
         return self
 
@@ -158,22 +169,25 @@ def lock_is_held(run_dir: Path) -> dict | None:
 
 
 def write_json_atomic(path: Path, value: object) -> None:
-    """Small JSON files (progress heartbeat): temporary file + rename, no fsync (losing one is harmless)."""
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.part")
-    tmp.write_text(json.dumps(value), encoding="utf-8")
-    os.replace(tmp, path)
+    """Small JSON files (progress heartbeat): atomic replace, no fsync (losing one is harmless)."""
+    write_atomically(path, json.dumps(value).encode("utf-8"), durable=False)
+
+
+def write_config_file(run_dir: Path, text: str) -> None:
+    """config.toml, atomically and durably, and only when its content changes."""
+    path = run_dir / CONFIG_FILE
+    try:
+        if path.read_text(encoding="utf-8") == text:
+            return
+    except (OSError, UnicodeDecodeError):
+        pass
+    write_atomically(path, text.encode("utf-8"), durable=True)
 
 
 def rewrite_metrics_log(run_dir: Path, history: list[dict]) -> None:
     """Make metrics.jsonl exactly the checkpoint's history (drops lines of work lost in a crash)."""
-    path = run_dir / METRICS_FILE
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.part")
-    with open(tmp, "w", encoding="utf-8") as fh:
-        for record in history:
-            fh.write(json.dumps(record) + "\n")
-        fh.flush()
-        os.fsync(fh.fileno())
-    os.replace(tmp, path)
+    text = "".join(json.dumps(record) + "\n" for record in history)
+    write_atomically(run_dir / METRICS_FILE, text.encode("utf-8"), durable=True)
 
 
 def append_metrics(run_dir: Path, record: dict) -> None:

@@ -10,8 +10,16 @@ import json
 import time
 from pathlib import Path
 
+from rntn_engine.data.checkpoint_file import CheckpointUnavailableError
 from rntn_engine.run.checkpoints import newest_valid_checkpoint
-from rntn_engine.run.run_directory import METRICS_FILE, PROGRESS_FILE, list_checkpoints, lock_is_held
+from rntn_engine.run.run_directory import (
+    BEST_FILE,
+    METRICS_FILE,
+    MODEL_FILE,
+    PROGRESS_FILE,
+    list_checkpoints,
+    lock_is_held,
+)
 from rntn_engine.run.trainer import stored_config
 
 
@@ -36,8 +44,11 @@ def run_status(run_dir: Path) -> dict:
             progress = json.loads((run_dir / PROGRESS_FILE).read_text(encoding="utf-8"))
         except ValueError:
             progress = {}
-    newest, damaged_files = newest_valid_checkpoint(run_dir)
-    damaged = [str(exc) for _, exc in damaged_files]
+    try:
+        newest, damaged_files = newest_valid_checkpoint(run_dir)
+        damaged = [str(exc) for _, exc in damaged_files]
+    except CheckpointUnavailableError as exc:  # busy or unreadable now: say so, change nothing
+        newest, damaged = None, [str(exc)]
     checkpoint_state, checkpoint_name = None, None
     if newest is not None:
         checkpoint_state, checkpoint_name, config = newest.state, Path(newest.path).name, newest.config
@@ -76,6 +87,19 @@ def run_status(run_dir: Path) -> dict:
         "best_value": checkpoint_state.get("best_value") if checkpoint_state else None,
         "best_checkpoint": checkpoint_state.get("best_checkpoint") if checkpoint_state else None,
         "newest_checkpoint": checkpoint_name,
+        "files": model_files(run_dir, config.final_model, checkpoint_state),
         "checkpoints": len(list_checkpoints(run_dir)),
         "damaged_checkpoints": damaged,
     }
+
+
+def model_files(run_dir: Path, final_model: str, state: dict | None) -> dict[str, str]:
+    """What best.h5 and model.h5 hold, in words, for the files that exist."""
+    files = {}
+    best = (state or {}).get("best_checkpoint") or ""
+    if (run_dir / BEST_FILE).exists():
+        files[BEST_FILE] = f"the best checkpoint so far ({best})" if best else "the best checkpoint"
+    if (run_dir / MODEL_FILE).exists():
+        holds = "the best checkpoint" if final_model == "best" and best else "the last parameters"
+        files[MODEL_FILE] = f"the final model: {holds} (--final-model {final_model})"
+    return files

@@ -6,7 +6,8 @@ Fine-grained accuracy compares the C-way argmax with the gold class. Binary
 accuracy (the two-sided view of a C-class sentiment scale) leaves out nodes whose
 gold class is the neutral one, maps gold classes to their side (negative or
 positive), and predicts the side whose classes have the larger total probability
-(the neutral class's probability counts for neither side). The sides come from a
+(the neutral class's probability counts for neither side); equal totals predict the
+negative side. The sides come from a
 :class:`LabelScheme`; by default for C classes (``LabelScheme.for_classes``):
 
     C odd  (5, 3, ...): neutral = C // 2, negative = 0 .. C//2 - 1, positive = C//2 + 1 .. C-1
@@ -106,3 +107,12 @@ def per_class_scores(confusion: np.ndarray) -> dict[str, np.ndarray]:
     denominator = precision + recall
     f1 = np.divide(2 * precision * recall, denominator, out=np.zeros_like(tp), where=denominator > 0)
     return {"precision": precision, "recall": recall, "f1": f1, "support": support.astype(np.int64)}
+
+
+def macro_f1(confusion: np.ndarray) -> float:
+    """F1 averaged over the classes that occur in the gold labels or the predictions (each class
+    weighs the same, however rare); nan when there are none. From a confusion matrix, so that
+    counts summed over blocks give the same value."""
+    scores = per_class_scores(confusion)
+    present = (confusion.sum(axis=0) + confusion.sum(axis=1)) > 0
+    return float(scores["f1"][present].mean()) if present.any() else float("nan")

@@ -20,7 +20,6 @@ end, and when the run is asked to stop (SIGTERM, SIGINT, ``--time-limit``).
 
 from __future__ import annotations
 
-import dataclasses
 import hashlib
 import os
 import time
@@ -31,25 +30,39 @@ from typing import Callable
 import numpy as np
 from tqdm import tqdm
 
+from rntn_engine.data.atomic_files import fsync_directory, temp_name_for, write_atomically
 from rntn_engine.data.batches import EncodedTreebank
 from rntn_engine.data.encoded_cache import cache_key, load_cached_bank, store_cached_bank
+from rntn_engine.data.errors import InputError
 from rntn_engine.data.treebank_encoding import apply_vocabulary, read_encoded_treebank, read_treebank_words
 from rntn_engine.data.vocabulary import Vocabulary, vocabulary_from_counts
 from rntn_engine.model.adagrad import AdaGrad
 from rntn_engine.model.objective import L2Strengths, TreeModelObjective, split_into_chunks
-from rntn_engine.model.parameters import MemoryLimitError, ModelShape, Parameters, check_memory, init_parameters
+from rntn_engine.model.parameters import (
+    Gradient,
+    MemoryLimitError,
+    ModelShape,
+    Parameters,
+    check_memory,
+    init_parameters,
+)
 from rntn_engine.run.checkpoints import Checkpoint, newest_valid_checkpoint, save_checkpoint
-from rntn_engine.run.evaluation import predict_treebank
+from rntn_engine.run.evaluation import TreebankPredictions, predict_treebank
 from rntn_engine.run.fault_injection import fault_from_environment
 from rntn_engine.run.run_config import (
-    RESUME_OVERRIDABLE,
+    LOWER_IS_BETTER,
+    ConfigError,
+    RESUME_CHANGEABLE,
     TrainConfig,
     config_differences,
     config_from_mapping,
     load_config_file,
 )
 from rntn_engine.run.run_directory import (
+    BEST_FILE,
     CONFIG_FILE,
+    LOCK_FILE,
+    METRICS_FILE,
     MODEL_FILE,
     PROGRESS_FILE,
     RunLock,
@@ -60,11 +73,13 @@ from rntn_engine.run.run_directory import (
     prune_checkpoints,
     remove_leftover_temp_files,
     rewrite_metrics_log,
+    write_config_file,
     write_json_atomic,
 )
 from rntn_engine.run.pretrained_start import extend_with_vector_words, initial_word_vectors, resolve_dim
 from rntn_engine.run.run_errors import RunDirectoryError, TrainingError
-from rntn_engine.run.scores import accuracy, majority_class
+from rntn_engine.run.run_state import RunState
+from rntn_engine.run.scores import LabelScheme, accuracy, binary_accuracy, confusion_matrix, macro_f1, majority_class
 from rntn_engine.run.stop_signals import EXIT_STOPPED_RESUMABLE, StopRequest, parse_duration
 
 EXIT_FINISHED = 0
@@ -77,40 +92,18 @@ TREEBANK_CACHE_MIN_BYTES = 16 * 2**20
 
 def file_sha256(path: str | Path) -> str:
     digest = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            digest.update(block)
+    try:
+        with open(path, "rb") as fh:
+            for block in iter(lambda: fh.read(1 << 20), b""):
+                digest.update(block)
+    except OSError as exc:
+        raise InputError(str(path), f"cannot read the run's data file: {exc.strerror or exc}") from None
     return digest.hexdigest()
 
 
 def epoch_order(seed: int, epoch: int, n_trees: int) -> np.ndarray:
     """The shuffled tree order of ``epoch``: a function of (seed, epoch) alone."""
     return np.random.default_rng([seed, epoch]).permutation(n_trees)
-
-
-@dataclass
-class RunState:
-    """Where a run is. Saved in every checkpoint; every field decides the future."""
-
-    step: int = 0  # minibatch updates done
-    epoch: int = 0  # current epoch, 0-based (= epochs completed when position is 0)
-    position: int = 0  # trees of the current epoch already trained on
-    epoch_loss: float = 0.0  # sum over this epoch's minibatches of loss x trees, so far
-    best_value: float | None = None  # best value of best_metric so far
-    best_step: int | None = None  # step of the best evaluation
-    best_checkpoint: str = ""  # file name of the best checkpoint
-    evaluations_without_improvement: int = 0  # for early stopping
-    finished: bool = False  # the run is complete (all epochs, or stopped early)
-    finish_reason: str = ""  # "all epochs done" or "early stopping"
-    training_seconds: float = 0.0  # wall time spent training, all invocations together
-
-    def to_dict(self) -> dict:
-        return dataclasses.asdict(self)
-
-    @classmethod
-    def from_dict(cls, values: dict) -> "RunState":
-        known = {f.name for f in dataclasses.fields(cls)}
-        return cls(**{k: v for k, v in values.items() if k in known})
 
 
 @dataclass
@@ -121,11 +114,29 @@ class TrainingData:
     hashes: dict[str, str] = field(default_factory=dict)
 
 
-def data_file_hashes(config: TrainConfig) -> dict[str, str]:
-    hashes = {"train_file": file_sha256(config.train_file)}
-    if config.dev_file:
-        hashes["dev_file"] = file_sha256(config.dev_file)
+DATA_FILE_SETTINGS = ("train_file", "dev_file")  # the data a run reads at every start and resume
+
+
+def data_file_hashes(config: TrainConfig, run_dir: Path | None = None) -> dict[str, str]:
+    """SHA-256 of each data file; a missing one is named, with how to point ``run_dir`` at its new place."""
+    hashes = {}
+    for key in DATA_FILE_SETTINGS:
+        path = getattr(config, key)
+        if not path:
+            continue
+        if run_dir is not None and not Path(path).is_file():
+            flag = "--" + key.replace("_", "-")
+            raise InputError(path, f"the run's {key} is not there; if it moved, point the run at it: "
+                                   f"`rntn resume {run_dir} {flag} NEW_PATH` (the content must be the same)")
+        hashes[key] = file_sha256(path)
     return hashes
+
+
+def resolve_data_paths(config: TrainConfig, keys: tuple[str, ...] = ("train_file", "dev_file", "vectors_file")) -> None:
+    """Store data paths absolute, so the run can be resumed from any working directory."""
+    for key in keys:
+        if getattr(config, key):
+            setattr(config, key, str(Path(getattr(config, key)).resolve()))
 
 
 def load_training_data(config: TrainConfig, vocabulary: Vocabulary | None = None,
@@ -193,8 +204,16 @@ def prepare_new_run_directory(config: TrainConfig) -> Path:
 
 
 def load_latest_valid_checkpoint(run_dir: Path, echo: Callable[[str], None]) -> Checkpoint | None:
-    """The newest checkpoint (by step) that verifies; damaged newer ones are renamed aside with a warning."""
+    """The newest checkpoint (by step) that verifies; damaged newer ones are renamed aside with a warning.
+
+    Only a wrong format or checksum marks a file damaged; a checkpoint that cannot be read now (busy,
+    permission, I/O) stops the resume (CheckpointUnavailableError), and when checkpoints exist but none
+    verifies, nothing is renamed and the resume stops: a run never silently restarts from step 0.
+    """
     checkpoint, damaged = newest_valid_checkpoint(run_dir)
+    if checkpoint is None and damaged:
+        raise RunDirectoryError(f"{run_dir}: none of its {len(damaged)} checkpoints verifies (newest: {damaged[0][1]});"
+                                f" nothing was renamed or changed. Check them with `rntn inspect`, or start a new run")
     for path, exc in damaged:
         echo(f"warning: {exc}; falling back to the previous checkpoint")
         # keep the evidence, out of the way of new checkpoints of the same step
@@ -203,9 +222,18 @@ def load_latest_valid_checkpoint(run_dir: Path, echo: Callable[[str], None]) -> 
 
 
 def stored_config(run_dir: Path) -> TrainConfig:
-    if not is_run_directory(run_dir):
-        raise RunDirectoryError(f"{run_dir}: not a run directory of ours (no {CONFIG_FILE} with a [train] table)")
-    return config_from_mapping(load_config_file(run_dir / CONFIG_FILE), source=str(run_dir / CONFIG_FILE))
+    """The run's config.toml; if it is unreadable or invalid, the configuration stored in its newest checkpoint."""
+    if not run_dir.is_dir():
+        raise RunDirectoryError(f"{run_dir}: no such run directory")
+    try:
+        return config_from_mapping(load_config_file(run_dir / CONFIG_FILE), source=str(run_dir / CONFIG_FILE))
+    except (ConfigError, OSError, UnicodeDecodeError) as exc:
+        problem = exc
+    checkpoint, _ = newest_valid_checkpoint(run_dir) if list_checkpoints(run_dir) else (None, [])
+    if checkpoint is None:
+        raise RunDirectoryError(f"{run_dir}: not a run directory of ours ({CONFIG_FILE}: {problem}; and no valid "
+                                f"checkpoint to take the configuration from)")
+    return checkpoint.config
 
 
 # --- the loop --------------------------------------------------------------------------------------------
@@ -215,8 +243,9 @@ class Trainer:
     """Owns one training session in a run directory (see module docstring)."""
 
     def __init__(self, run_dir: Path, config: TrainConfig, echo: Callable[[str], None] = print,
-                 show_progress: bool | None = None) -> None:
+                 show_progress: bool | None = None, stop: StopRequest | None = None) -> None:
         self.run_dir = run_dir
+        self.stop = stop or StopRequest()
         self.config = config
         self.echo = echo
         self.show_progress = show_progress
@@ -224,6 +253,7 @@ class Trainer:
         self.last_saved_step: int | None = None
         self.last_save_time = time.monotonic()
         self.last_heartbeat = 0.0
+        self.anchors: dict[str, np.ndarray] = {}  # what the word arrays' L2 terms pull toward (run state)
 
     # .. checkpoints ...........................................................................................
 
@@ -236,7 +266,7 @@ class Trainer:
         path = self.run_dir / checkpoint_name(state.step)
         try:
             save_checkpoint(path, params, data.vocabulary, self.config, optimiser.sums, state.to_dict(), history,
-                            data.hashes, fault=self.fault)
+                            data.hashes, fault=self.fault, anchors=self.anchors)
         except OSError as exc:
             previous = list_checkpoints(self.run_dir)
             kept = f"the previous checkpoint {previous[-1].path.name} is intact" if previous else "no checkpoint existed yet"
@@ -254,10 +284,22 @@ class Trainer:
         if not force and now - self.last_heartbeat < HEARTBEAT_SECONDS:
             return
         self.last_heartbeat = now
-        write_json_atomic(self.run_dir / PROGRESS_FILE, {
+        self.write_run_file(PROGRESS_FILE, lambda: write_json_atomic(self.run_dir / PROGRESS_FILE, {
             "pid": os.getpid(), "updated": now, "step": state.step, "epoch": state.epoch,
             "position": state.position, "trees_per_epoch": n_trees, "epochs": self.config.epochs,
-            "steps_per_epoch": steps_per_epoch, "nodes_per_second": rate, "finished": state.finished})
+            "steps_per_epoch": steps_per_epoch, "nodes_per_second": rate, "finished": state.finished}))
+
+    def write_run_file(self, name: str, write: Callable[[], None]) -> None:
+        """Run one write of a run-directory file; an OS error becomes one line naming the intact checkpoint."""
+        try:
+            if self.fault:
+                self.fault(f"run_file:{name}")
+            write()
+        except OSError as exc:
+            previous = list_checkpoints(self.run_dir)
+            kept = f"the checkpoint {previous[-1].path.name} is intact" if previous else "no checkpoint existed yet"
+            raise TrainingError(f"{self.run_dir / name}: could not write it ({exc.strerror or exc}); {kept}. "
+                                f"Free space (or fix the cause), then `rntn resume {self.run_dir}`") from None
 
     # .. the run ...............................................................................................
 
@@ -267,10 +309,12 @@ class Trainer:
         # --- restore: data, parameters, optimiser, position -- all at this one point --------------------------
         data = load_training_data(config, checkpoint.vocabulary if checkpoint else None,
                                   cache_dir=self.run_dir / TREEBANK_CACHE_DIR)
+        if self.fault:
+            self.fault("data_loaded")
         bank = data.train
         shape = ModelShape(config.model, len(data.vocabulary), config.dim, config.num_classes, config.dtype)
         try:
-            check_memory(shape, config.max_memory_gb * 2**30)
+            check_memory(shape, config.max_memory_gb * 2**30, anchored_words=config.l2_words_toward == "start")
         except MemoryLimitError as exc:
             raise TrainingError(str(exc)) from None
         frozen = ("L",) if config.freeze_vectors else ()
@@ -280,22 +324,29 @@ class Trainer:
                 params.L[:] = initial_word_vectors(config, data.vocabulary, bank, params.flat.dtype, self.echo)
             optimiser = AdaGrad(params, config.lr, config.adagrad_eps, frozen)
             state, history = RunState(), []
+            if config.l2_words_toward == "start":
+                self.anchors = {"L": params.L.copy()}
         else:
             params = checkpoint.params
             optimiser = AdaGrad(params, config.lr, config.adagrad_eps, frozen)
             optimiser.sums.flat[:] = checkpoint.adagrad_sums.flat
-            state, history = RunState.from_dict(checkpoint.state), list(checkpoint.metrics)
+            state, history = RunState.from_record(checkpoint.state), list(checkpoint.metrics)
+            self.anchors = dict(checkpoint.anchors)
             self.last_saved_step = state.step
         if state.finished and state.finish_reason == "all epochs done" and state.epoch < config.epochs:
             state.finished, state.finish_reason = False, ""  # more epochs were asked for on resume
-        rewrite_metrics_log(self.run_dir, history)
+        if state.position > bank.n_trees:
+            raise TrainingError(f"{checkpoint.path}: the run is at tree {state.position} of its epoch, but the "
+                                f"training treebank holds {bank.n_trees} trees; it is not the treebank of this run")
+        self.write_run_file(METRICS_FILE, lambda: rewrite_metrics_log(self.run_dir, history))
 
-        grads = params.zeros_like()
+        grads = Gradient(shape)
         l2 = L2Strengths(words=config.l2_words, compose=config.l2_compose, tensor=config.l2_tensor,
                          classifier=config.l2_classifier, word_matrices=config.l2_word_matrices)
-        objective = TreeModelObjective(params, l2, threads=config.threads)
+        objective = TreeModelObjective(params, l2, threads=config.threads, anchors=self.anchors)
         steps_per_epoch = -(-bank.n_trees // config.batch_size)
-        stop = StopRequest(parse_duration(config.time_limit) if config.time_limit else 0.0)
+        stop = self.stop
+        stop.set_time_limit(parse_duration(config.time_limit) if config.time_limit else 0.0)
         where = "from the beginning" if checkpoint is None else f"from step {state.step} (epoch {state.epoch + 1}, " \
                                                                f"tree {state.position} of {bank.n_trees})"
         self.echo(f"training {config.model} d={config.dim} on {bank.n_trees} trees ({bank.n_nodes} nodes), "
@@ -308,13 +359,9 @@ class Trainer:
         session_start = time.monotonic()
         seconds_before = state.training_seconds
         rate: float | None = None
-        stop.install()
         try:
             while state.epoch < config.epochs:
-                # --- schedule: this epoch's order, optional AdaGrad reset ------------------------------------
-                if (config.adagrad_reset_epochs and state.epoch > 0 and state.position == 0
-                        and state.epoch % config.adagrad_reset_epochs == 0):
-                    optimiser.reset()
+                # --- schedule: this epoch's order ------------------------------------------------------------
                 order = epoch_order(config.seed, state.epoch, bank.n_trees)
                 bar = tqdm(total=bank.n_trees, initial=state.position, unit="tree", leave=False,
                            desc=f"epoch {state.epoch + 1}/{config.epochs}",
@@ -339,11 +386,15 @@ class Trainer:
                         raise TrainingError(f"loss became {loss} at epoch {state.epoch + 1}, step {state.step + 1}; "
                                             f"the last good checkpoint is untouched. Lower --lr (now {config.lr}) "
                                             f"or raise the L2 strengths and start a new run")
-                    loss += optimiser.step_with_l2(params, grads, l2)  # L2 term, update, zeroing: one pass
+                    penalty = optimiser.step_with_l2(params, grads, l2, self.anchors)  # L2, update, zeroing
                     nodes = sum(c.n_nodes for c in chunks)
                     state.step += 1
                     state.position += len(tree_ids)
-                    state.epoch_loss += loss * len(tree_ids)
+                    state.epoch_loss += loss * len(tree_ids)  # the data term is the mean over the trees
+                    state.epoch_labelled_nodes += sum(int(np.count_nonzero(c.label >= 0)) for c in chunks)
+                    state.epoch_l2 += penalty * len(tree_ids)
+                    if self.fault is not None:
+                        self.fault("step")  # tests only: a kill or signal after exactly N steps
                     nodes_epoch_session += nodes
                     bar.update(len(tree_ids))
                     # --- log progress; checkpoint by steps or by wall time ---------------------------------
@@ -361,13 +412,13 @@ class Trainer:
                 state.training_seconds = seconds_before + time.monotonic() - session_start
                 record = self.evaluate(objective, params, state, data, rate)
                 history.append(record)
-                append_metrics(self.run_dir, record)
+                self.write_run_file(METRICS_FILE, lambda: append_metrics(self.run_dir, record))
                 self.echo(format_epoch_line(record))
                 state.epoch += 1
-                state.position, state.epoch_loss = 0, 0.0
+                state.position, state.epoch_loss, state.epoch_labelled_nodes, state.epoch_l2 = 0, 0.0, 0, 0.0
                 value = record.get(config.best_metric)
-                if value is not None and (state.best_value is None or value > state.best_value):
-                    state.best_value, state.best_step = value, state.step
+                if value is not None and value == value and is_better(config.best_metric, value, state.best_value):
+                    state.best_value = value
                     state.best_checkpoint = checkpoint_name(state.step)
                     state.evaluations_without_improvement = 0
                 elif value is not None:
@@ -376,7 +427,9 @@ class Trainer:
                     state.finished, state.finish_reason = True, "early stopping"
                 elif state.epoch >= config.epochs:
                     state.finished, state.finish_reason = True, "all epochs done"
-                self.save(params, optimiser, state, history, data)
+                saved = self.save(params, optimiser, state, history, data)
+                if state.best_checkpoint == saved.name:
+                    self.write_run_file(BEST_FILE, lambda: keep_as(saved, self.run_dir / BEST_FILE))
                 self.heartbeat(state, bank.n_trees, steps_per_epoch, rate, force=True)
                 if state.finished:
                     break
@@ -384,88 +437,183 @@ class Trainer:
                 state.finished, state.finish_reason = True, "all epochs done"
                 self.save(params, optimiser, state, history, data)
         finally:
-            stop.uninstall()
             objective.close()
         # --- finish: the final model ---------------------------------------------------------------------
         if state.finish_reason == "early stopping":
             self.echo(f"early stopping: {config.best_metric} did not improve for {config.patience} evaluations")
         self.heartbeat(state, bank.n_trees, steps_per_epoch, rate, force=True)
-        self.write_final_model(params, optimiser, state, history, data)
-        return EXIT_FINISHED
+        if self.fault:
+            self.fault("final_model")
+        self.write_final_model(params, optimiser.sums, state, history, data.vocabulary, data.hashes, self.anchors)
+        return EXIT_FINISHED  # a stop asked for while the final model was written: the run is complete anyway
 
     def evaluate(self, objective: TreeModelObjective, params: Parameters, state: RunState,
                  data: TrainingData, rate: float | None) -> dict:
         record = {"step": state.step, "epoch": state.epoch + 1,
-                  "train_loss": state.epoch_loss / data.train.n_trees,
+                  "train_loss": state.epoch_loss / max(state.epoch_labelled_nodes, 1),
+                  "train_l2": state.epoch_l2 / data.train.n_trees,
                   "wall_seconds": round(state.training_seconds, 3),
                   "nodes_per_second": round(rate, 1) if rate else None}
         if data.dev is not None:
-            dev = predict_treebank(objective, params, data.dev)
-            record.update({f"dev_{k}": v for k, v in dev.fine_scores().items()})
-            record["dev_loss"] = dev.mean_loss()
+            dev = predict_treebank(objective, params, data.dev, keep_probabilities=True)
+            record.update({f"dev_{k}": v for k, v in dev_scores(dev, self.config.num_classes).items()})
         return record
 
-    def write_final_model(self, params: Parameters, optimiser: AdaGrad, state: RunState, history: list[dict],
-                          data: TrainingData) -> None:
+    def write_final_model(self, params: Parameters, sums: Parameters | None, state: RunState, history: list[dict],
+                          vocabulary: Vocabulary, data_hashes: dict, anchors: dict) -> None:
+        """model.h5: the best checkpoint (``final_model = best`` and a best exists), else the last parameters."""
         path = self.run_dir / MODEL_FILE
-        save_checkpoint(path, params, data.vocabulary, self.config, optimiser.sums, state.to_dict(), history, data.hashes,
-                        fault=self.fault)
-        best = f"; best {self.config.best_metric} {state.best_value:.4f} in {state.best_checkpoint}" \
+        best = self.run_dir / state.best_checkpoint if state.best_checkpoint else None
+        try:
+            if self.config.final_model == "best" and best is not None and best.is_file():
+                keep_as(best, path)
+                self.echo(f"saved {path}: the best checkpoint, {best.name} ({self.config.best_metric} "
+                          f"{state.best_value:.4f}; the last one is {checkpoint_name(state.step)})")
+                return
+            save_checkpoint(path, params, vocabulary, self.config, sums, state.to_dict(), history, data_hashes,
+                            fault=self.fault, anchors=anchors)
+        except OSError as exc:
+            raise TrainingError(f"{path}: could not write the final model ({exc.strerror or exc}); the run is "
+                                f"finished and its last checkpoint is intact: `rntn resume {self.run_dir}` writes "
+                                f"the model file") from None
+        about = f"; best {self.config.best_metric} {state.best_value:.4f} in {state.best_checkpoint}" \
             if state.best_value is not None else ""
-        self.echo(f"saved {path}{best}")
+        self.echo(f"saved {path}: the last parameters{about}")
+
+
+def is_better(metric: str, value: float, best: float | None) -> bool:
+    """Whether ``value`` of the dev score ``metric`` beats the best so far (dev_loss: lower is better)."""
+    if best is None:
+        return True
+    return value < best if metric in LOWER_IS_BETTER else value > best
+
+
+def dev_scores(dev: TreebankPredictions, num_classes: int) -> dict[str, float]:
+    """The dev scores of an evaluation record (keys without the ``dev_`` prefix)."""
+    scheme = LabelScheme.for_classes(num_classes)
+    root = dev.is_root
+    return {**dev.fine_scores(),
+            "binary_all": binary_accuracy(dev.gold, dev.probabilities, scheme),
+            "binary_root": binary_accuracy(dev.gold[root], dev.probabilities[root], scheme),
+            "macro_f1_all": macro_f1(confusion_matrix(dev.gold, dev.predicted, num_classes)),
+            "macro_f1_root": macro_f1(confusion_matrix(dev.gold[root], dev.predicted[root], num_classes)),
+            "loss": dev.mean_loss()}
+
+
+def keep_as(source: Path, target: Path) -> None:
+    """Make ``target`` hold exactly the bytes of ``source``, atomically: a hard link where the filesystem
+    has them (checkpoints are never changed in place, so sharing the file is safe), else a copy."""
+    if target.exists() and os.path.samefile(source, target):
+        return  # already the same file (renaming a hard link onto itself would do nothing, and leave the link)
+    temporary = temp_name_for(target)
+    temporary.unlink(missing_ok=True)  # our own name: a leftover of this process
+    try:
+        os.link(source, temporary)
+    except OSError:
+        write_atomically(target, source.read_bytes())
+        return
+    try:
+        os.replace(temporary, target)
+    except BaseException:
+        temporary.unlink(missing_ok=True)
+        raise
+    fsync_directory(target.parent)
 
 
 def finished_with_nothing_to_do(checkpoint: Checkpoint, epochs: int) -> bool:
     """A finished run stays finished unless it ran all its epochs and more are now asked for."""
-    state = RunState.from_dict(checkpoint.state)
+    state = RunState.from_record(checkpoint.state)
     return state.finished and not (state.finish_reason == "all epochs done" and epochs > state.epoch)
 
 
 def start_training(config: TrainConfig, echo: Callable[[str], None] = print,
-                   show_progress: bool | None = None) -> int:
-    """`rntn train`: a new run in a new or empty run directory."""
+                   show_progress: bool | None = None, stop: StopRequest | None = None) -> int:
+    """`rntn train`: a new run in a new or empty run directory.
+
+    A start that fails before its first checkpoint is committed (a bad vector file, a treebank
+    error, the memory guard) removes what it created, so the same command can simply be run again.
+    """
     config.validate()
-    resolve_dim(config)
-    run_dir = prepare_new_run_directory(config)
-    with RunLock(run_dir):
-        (run_dir / CONFIG_FILE).write_text(config.to_toml(), encoding="utf-8")
-        return Trainer(run_dir, config, echo, show_progress).run(None)
+    resolve_data_paths(config)
+    stop = stop or StopRequest()
+    with stop:
+        resolve_dim(config)
+        run_dir = prepare_new_run_directory(config)
+        created = not any(run_dir.iterdir())
+        try:
+            with RunLock(run_dir):
+                trainer = Trainer(run_dir, config, echo, show_progress, stop)
+                trainer.write_run_file(CONFIG_FILE, lambda: write_config_file(run_dir, config.to_toml()))
+                return trainer.run(None)
+        except BaseException:
+            if created and not list_checkpoints(run_dir):
+                remove_failed_start(run_dir)
+            raise
+
+
+def remove_failed_start(run_dir: Path) -> None:
+    """Delete the files a new run creates before its first checkpoint, then the directory if empty."""
+    for name in (CONFIG_FILE, LOCK_FILE, METRICS_FILE, PROGRESS_FILE):
+        try:
+            (run_dir / name).unlink()
+        except FileNotFoundError:
+            pass
+    remove_leftover_temp_files(run_dir)
+    try:
+        run_dir.rmdir()
+    except OSError:
+        pass  # not empty: something else is there, leave it
 
 
 def resume_training(run_dir: Path, overrides: dict, echo: Callable[[str], None] = print,
-                    show_progress: bool | None = None, allow_changed_data: bool = False) -> int:
+                    show_progress: bool | None = None, allow_changed_data: bool = False,
+                    stop: StopRequest | None = None) -> int:
     """`rntn resume`: continue the run in ``run_dir`` from its newest valid checkpoint."""
-    config = stored_config(run_dir)
-    with RunLock(run_dir):
-        for leftover in remove_leftover_temp_files(run_dir):
-            echo(f"removed the leftover of an interrupted write: {leftover.name}")
-        checkpoint = load_latest_valid_checkpoint(run_dir, echo)
-        if checkpoint is not None:
-            differing = config_differences(checkpoint.config, config, ignore=RESUME_OVERRIDABLE)
-            if differing:
-                raise RunDirectoryError(f"{run_dir / CONFIG_FILE}: differs from the checkpoint in "
-                                        f"{', '.join(differing)}; restore it or start a new run")
-            config = checkpoint.config
-            changed = [k for k, v in data_file_hashes(config).items() if checkpoint.data_hashes.get(k) != v]
-            if changed and not allow_changed_data:
-                raise RunDirectoryError(f"{run_dir}: the content of {', '.join(changed)} changed since the "
-                                        f"checkpoint was written; pass --allow-changed-data to continue anyway")
-        else:
-            echo(f"no valid checkpoint in {run_dir}: starting the run from the beginning")
-        config = config_from_mapping(overrides, config)
-        config.validate()
-        if checkpoint is not None and finished_with_nothing_to_do(checkpoint, config.epochs):
-            state = RunState.from_dict(checkpoint.state)
-            if not (run_dir / MODEL_FILE).exists():  # killed between the last checkpoint and the model file
-                save_checkpoint(run_dir / MODEL_FILE, checkpoint.params, checkpoint.vocabulary, checkpoint.config,
-                                checkpoint.adagrad_sums, checkpoint.state, checkpoint.metrics, checkpoint.data_hashes)
-                echo(f"saved {run_dir / MODEL_FILE}")
-            echo(f"run already finished at step {state.step} ({state.finish_reason}); nothing to do")
-            return EXIT_FINISHED
-        (run_dir / CONFIG_FILE).write_text(config.to_toml(), encoding="utf-8")
-        if checkpoint is not None:
-            checkpoint.config = config
-        return Trainer(run_dir, config, echo, show_progress).run(checkpoint)
+    stop = stop or StopRequest()
+    with stop:
+        config = stored_config(run_dir)
+        with RunLock(run_dir):
+            for leftover in remove_leftover_temp_files(run_dir):
+                echo(f"removed the leftover of an interrupted write: {leftover.name}")
+            checkpoint = load_latest_valid_checkpoint(run_dir, echo)
+            if checkpoint is not None:
+                differing = config_differences(checkpoint.config, config, ignore=RESUME_CHANGEABLE)
+                if differing:
+                    raise RunDirectoryError(f"{run_dir / CONFIG_FILE}: differs from the checkpoint in "
+                                            f"{', '.join(differing)}; restore it or start a new run")
+                config = checkpoint.config
+            else:
+                echo(f"no checkpoint in {run_dir} (stopped before its first one): starting the run from the "
+                     f"beginning")
+            moved = {k: v for k, v in overrides.items() if k in DATA_FILE_SETTINGS}
+            config = config_from_mapping(overrides, config)
+            resolve_data_paths(config, tuple(moved))
+            config.validate()
+            if checkpoint is not None:
+                hashes = data_file_hashes(config, run_dir)
+                changed = [k for k, v in hashes.items() if checkpoint.data_hashes.get(k) != v]
+                if changed and not allow_changed_data:
+                    what = ("is not the file the run was trained on" if set(changed) <= set(moved) else
+                            "changed since the checkpoint was written")
+                    paths = ", ".join(getattr(config, k) for k in changed)
+                    raise RunDirectoryError(f"{run_dir}: the content of {', '.join(changed)} {what} ({paths}); "
+                                            f"pass --allow-changed-data to continue anyway")
+            trainer = Trainer(run_dir, config, echo, show_progress, stop)
+            best = RunState.from_record(checkpoint.state).best_checkpoint if checkpoint is not None else ""
+            if best and (run_dir / best).is_file():  # best.h5 may lag its checkpoint after a crash
+                trainer.write_run_file(BEST_FILE, lambda: keep_as(run_dir / best, run_dir / BEST_FILE))
+            if checkpoint is not None and finished_with_nothing_to_do(checkpoint, config.epochs):
+                state = RunState.from_record(checkpoint.state)
+                if not (run_dir / MODEL_FILE).exists():  # killed between the last checkpoint and the model file
+                    trainer.write_final_model(checkpoint.params, checkpoint.adagrad_sums, state,
+                                              list(checkpoint.metrics), checkpoint.vocabulary,
+                                              checkpoint.data_hashes, checkpoint.anchors)
+                echo(f"run already finished at step {state.step} ({state.finish_reason}); nothing to do")
+                return EXIT_FINISHED
+            trainer.write_run_file(CONFIG_FILE, lambda: write_config_file(run_dir, config.to_toml()))
+            if checkpoint is not None:
+                checkpoint.config = config
+            return trainer.run(checkpoint)
 
 
 def majority_baseline_line(train: EncodedTreebank, dev: EncodedTreebank) -> str:

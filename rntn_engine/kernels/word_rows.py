@@ -1,0 +1,45 @@
+"""Word rows: the leaves' lookup p = L[w] differentiated into the rows a minibatch touched.
+
+Legend: N nodes in a chunk, n distinct words of the minibatch, w width of a word row
+(d for the word vectors L, d*d for the MV-RNN's word matrices LM, one matrix per row).
+
+Forward (inside forward_compose / forward_compose_mv): a leaf with word w takes p = L[w].
+
+Backward: dL[w] += e for every leaf with word w. Only the rows of words that occur in
+the minibatch receive anything, so the gradient is kept as those rows only:
+
+    rows   (n,)   the distinct word ids of the minibatch, ascending
+    values (n, w) values[j] = dL[rows[j]]
+    slot   per leaf, the j with rows[j] = word of the leaf
+
+and ``scatter_word_rows`` adds each leaf's error to ``values[slot]``, leaves in chunk
+order, chunks in chunk order: the same additions in the same order as a dense dL,
+so the touched rows hold the same bits a dense gradient would.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+def scatter_word_rows(values, E, slot, leaves):
+    """values (n, w) += E[leaves[k]] at row slot[k], for k in order.
+
+    E (N, w) error reaching each node's word row (node vectors, or node matrices flattened);
+    slot (K,) int64 row of ``values`` of each leaf; leaves (K,) int32 node index of each leaf.
+    """
+    width = E.shape[1]
+    for k in range(leaves.shape[0]):
+        j = slot[k]
+        i = leaves[k]
+        for c in range(width):
+            values[j, c] += E[i, c]
+
+
+def touched_rows(leaf_words: list[np.ndarray]) -> np.ndarray:
+    """The distinct word ids of a minibatch, ascending (int64), from each chunk's leaf words."""
+    if not leaf_words:
+        return np.zeros(0, dtype=np.int64)
+    return np.unique(np.concatenate(leaf_words)).astype(np.int64)
