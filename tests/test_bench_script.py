@@ -38,3 +38,22 @@ def test_synthetic_treebank_has_the_documented_shape(tmp_path):
     assert len(trees) == 400 and min(lengths) >= 2 and max(lengths) <= 60
     assert 16 <= sum(lengths) / len(lengths) <= 22  # about 19 words on average
     assert all((t.label >= 0).all() for t in trees)  # every node labelled
+
+
+def test_treebank_bench_runs_tiny_and_reports_every_figure(tmp_path, capsys):
+    spec = importlib.util.spec_from_file_location("rntn_bench_treebank", SCRIPT.with_name("bench_treebank.py"))
+    bench = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(bench)
+    result = bench.main(["--trees", "300", "--vocab", "200", "--corpus-dir", str(tmp_path), "--repeats", "1",
+                         "--exact-mb", "0.02", "--dim", "4", "--train-seconds", "0.2", "--json"])
+    printed = json.loads(capsys.readouterr().out)
+    (size,) = printed["sizes"]
+    assert size["trees"] == 300 == result["sizes"][0]["trees"]
+    for key in ("read_for_training_mb_per_s", "iter_trees_mb_per_s", "exact_reader_mb_per_s", "bank_bytes_per_node"):
+        assert size[key] > 0, key
+    for command in ("train", "resume", "resume_reading_text"):
+        assert size[command]["first_step_seconds"] > 0 and size[command]["peak_rss_bytes"] > 0, command
+        assert size[command]["exit_code"] == 75, command  # stopped by SIGTERM with a checkpoint
+    assert size["evaluate"]["trees_per_second"] > 0 and size["evaluate"]["exit_code"] == 0
+    lengths = [line.count("(") for line in (tmp_path / "synthetic-300-v200.trees").read_text().splitlines()]
+    assert len(lengths) == 300 and 2 * 16 - 1 <= sum(lengths) / 300 <= 2 * 22 - 1  # about 19 words a tree

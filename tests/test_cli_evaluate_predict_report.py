@@ -146,6 +146,35 @@ def test_predict_bad_tree_line_names_the_line(demo_run, tmp_path, capsys):
     assert f"{bad}:2:" in capsys.readouterr().err
 
 
+def test_predict_reads_trees_spread_over_several_lines(demo_run, tmp_path, capsys):
+    import nltk  # nltk's pretty printer writes the multi-line trees (external tool)
+
+    root, run_dir = demo_run
+    lines = (root / "dev.trees").read_text(encoding="utf-8").splitlines()[:30]
+    single, multi = tmp_path / "single.trees", tmp_path / "multi.trees"
+    single.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    pretty = [nltk.Tree.fromstring(line).pformat(margin=16) for line in lines]
+    assert all("\n" in p for p in pretty)
+    multi.write_text("\n".join(pretty) + "\n", encoding="utf-8")
+    outputs = []
+    for path in (single, multi):
+        assert main(["predict", str(run_dir / "model.h5"), str(path), "--format", "jsonl"]) == 0
+        outputs.append([json.loads(r) for r in capsys.readouterr().out.splitlines()])
+    assert len(outputs[0]) == len(outputs[1]) == 30
+    starts = [1 + sum(p.count("\n") + 1 for p in pretty[:k]) for k in range(30)]
+    assert [r["line"] for r in outputs[1]] == starts  # each tree is named by its first line
+    for a, b in zip(*outputs):
+        assert a["nodes"] == b["nodes"]
+
+
+def test_predict_names_the_line_of_a_tree_left_open(demo_run, tmp_path, capsys):
+    _, run_dir = demo_run
+    bad = tmp_path / "in.txt"
+    bad.write_text("(S (NP (DT the) (NN walk))\n   (VP was)\n(S (NP a) (VP b))\n", encoding="utf-8")
+    assert main(["predict", str(run_dir / "model.h5"), str(bad)]) == 1
+    assert f"{bad}:2:12: expected ')' to close the node opened at line 1, column 1" in capsys.readouterr().err
+
+
 def test_report_writes_png_figures(demo_run, tmp_path, capsys):
     _, run_dir = demo_run
     assert main(["report", str(run_dir), "--out-dir", str(tmp_path / "fig")]) == 0

@@ -16,7 +16,7 @@ from rntn_engine.data.treebank_reader import parse_tree, read_trees
 
 # id: (file content, line, column, fragment of the message, reader options)
 CASES = {
-    "empty file": (b"", 1, 1, "empty file: expected one bracketed tree per line", {}),
+    "empty file": (b"", 1, 1, "empty file: expected bracketed trees", {}),
     "only comments and blank lines": ("# header\n\n   \n", 1, 1, "no tree in 3 line(s)", {}),
     "missing closing bracket": ("(3 (2 a) (1 b)\n", 1, 15, "expected ')' to close the node opened at column 1", {}),
     "extra closing bracket": ("(3 (2 a) (1 b)))\n", 1, 16, "extra ')' after the end of the tree", {}),
@@ -81,17 +81,19 @@ def test_an_unreadable_path_is_a_treebank_error(make, tmp_path):
 
 
 @pytest.mark.parametrize(
-    "text, column, fragment",
+    "text, line, column, fragment",
     [
-        ("(2 a)\n(3 b)", 6, "a tree must fit on one line"),
-        ("", 1, "found an empty line"),
-        ("  # a comment", 3, "found a comment"),
+        ("(2 a)\n(3 b)", 10, 1, "expected one tree, found more text after it: '(3 b)'"),
+        ("(2\n  a)\n\n  x", 12, 3, "expected one tree, found more text after it: 'x'"),
+        ("", 9, 1, "found an empty line"),
+        ("  # a comment", 9, 3, "found a comment"),
+        ("\n(2 a)", 9, 1, "found an empty line"),
     ],
 )
-def test_parse_tree_refuses_what_is_not_one_tree(text, column, fragment):
+def test_parse_tree_refuses_what_is_not_one_tree(text, line, column, fragment):
     with pytest.raises(TreebankError) as caught:
         parse_tree(text, path="input", line=9)
-    assert str(caught.value).startswith(f"input:9:{column}: ")
+    assert str(caught.value).startswith(f"input:{line}:{column}: ")
     assert fragment in str(caught.value)
 
 

@@ -8,11 +8,11 @@ import tracemalloc
 import numpy as np
 import pytest
 
-from rntn_engine.data import treebank_reader
+from rntn_engine.data import treebank_bulk, treebank_reader
 from rntn_engine.data.bracket_tokens import escape_word, unescape_token
 from rntn_engine.data.errors import TreebankError
 from rntn_engine.data.tree import UNLABELLED
-from rntn_engine.data.treebank_reader import iter_trees, parse_tree, read_trees
+from rntn_engine.data.treebank_reader import iter_trees, iter_trees_exact, parse_tree, read_trees
 from rntn_engine.data.treebank_writer import format_tree, write_trees
 
 CANONICAL = [
@@ -179,27 +179,50 @@ def test_iter_trees_streams_and_stops_at_the_first_bad_line(treebank_file):
         next(trees)
 
 
-def test_iter_trees_does_not_hold_the_file_in_memory(treebank_file):
-    line = "(3 (2 (1 moss) (2 ferns)) (4 (3 (2 glass) (3 house)) (2 (2 quiet) (2 benches))))\n"
-    n_lines = 4000
-    path = treebank_file(line * n_lines)  # about 330 kB
+def _peak_bytes_while_iterating(reader, path) -> tuple[int, int]:
     tracemalloc.start()
     try:
-        count = sum(1 for _ in iter_trees(path))
+        count = sum(1 for _ in reader(path))
         _, peak = tracemalloc.get_traced_memory()
     finally:
         tracemalloc.stop()
+    return count, peak
+
+
+LINE = "(3 (2 (1 moss) (2 ferns)) (4 (3 (2 glass) (3 house)) (2 (2 quiet) (2 benches))))\n"
+
+
+def test_the_exact_reader_does_not_hold_the_file_in_memory(treebank_file):
+    n_lines = 4000
+    path = treebank_file(LINE * n_lines)  # about 330 kB
+    count, peak = _peak_bytes_while_iterating(iter_trees_exact, path)
     assert count == n_lines
-    assert peak < len(line) * n_lines / 5, peak  # a read buffer and one tree, not the whole file
+    assert peak < len(LINE) * n_lines / 5, peak  # a read buffer and one tree, not the whole file
+
+
+def test_the_bulk_reader_holds_one_block_not_the_file(treebank_file, monkeypatch):
+    monkeypatch.setattr(treebank_bulk, "BLOCK_BYTES", 8192)
+    small = treebank_file(LINE * 8_000, "small.trees")  # about 650 kB
+    large = treebank_file(LINE * 32_000, "large.trees")  # about 2.6 MB
+    _peak_bytes_while_iterating(iter_trees, small)  # warm: kernels loaded or compiled
+    count_small, peak_small = _peak_bytes_while_iterating(iter_trees, small)
+    count_large, peak_large = _peak_bytes_while_iterating(iter_trees, large)
+    assert (count_small, count_large) == (8_000, 32_000)
+    assert peak_large < 1.2 * peak_small, (peak_small, peak_large)  # four times the file, the same memory
+    assert peak_large < 2_000_000, peak_large  # word tables, and the scanners' arrays of the blocks in flight
 
 
 def test_progress_reports_every_line_read(treebank_file, monkeypatch):
     monkeypatch.setattr(treebank_reader, "PROGRESS_EVERY", 3)
-    path = treebank_file("# header\n(1 a)\n\n(2 b)\n(3 c)\n(4 d)\n(0 e)\n")
+    content = "# header\n(1 a)\n\n(2 b)\n(3 c)\n(4 d)\n(0 e)\n"
     calls = []
-    trees = read_trees(path, progress=calls.append)
+    trees = list(iter_trees_exact(treebank_file(content), progress=calls.append))
     assert len(trees) == 5
-    assert calls == [3, 3, 1]
+    assert calls == [3, 3, 1]  # every PROGRESS_EVERY lines, and the rest at the end
+    monkeypatch.setattr(treebank_bulk, "BLOCK_BYTES", 16)
+    calls = []
+    assert len(read_trees(treebank_file(content * 50, "long.trees"), progress=calls.append)) == 250
+    assert sum(calls) == 350 and len(calls) > 10  # after every block
 
 
 def _deep_trees(depth: int) -> dict[str, str]:

@@ -130,3 +130,27 @@ def test_lengths_and_counts_agree_with_a_direct_count(seed):
     n_long = int(((spans[:, 1] - spans[:, 0]) >= 21).sum())
     assert result.labels_by_phrase_length["21+"].total == n_long
 
+
+
+@pytest.mark.parametrize("block_bytes", [48, 1 << 20])
+def test_counting_whole_blocks_equals_counting_tree_by_tree(tmp_path, monkeypatch, block_bytes):
+    from pathlib import Path
+
+    from rntn_engine.data import treebank_bulk
+    from rntn_engine.data.treebank_bulk import iter_tree_blocks
+    from rntn_engine.data.treebank_reader import read_trees
+    from rntn_engine.data.treebank_stats import StatsAccumulator
+
+    monkeypatch.setattr(treebank_bulk, "BLOCK_BYTES", block_bytes)
+    path = tmp_path / "mixed.trees"
+    # the hand-made trees (unary chains, unlabelled nodes), an n-ary node, a word escaped two ways, a demo slice
+    demo = (Path(__file__).resolve().parents[1] / "data_demo" / "garden_dev.trees").read_text(encoding="utf-8")
+    extra = ["(2 (1 -LCB-) (3 {) (0 x))", "(4\n  (2 spread)\n  (1 over))"]
+    path.write_text("\n".join(HAND_MADE + extra) + "\n" + demo, encoding="utf-8")
+    by_tree, by_block = StatsAccumulator(5), StatsAccumulator(5)
+    for tree in read_trees(path):
+        by_tree.add(tree)
+    for block in iter_tree_blocks(path):
+        by_block.add_block(block)
+    assert by_block.result() == by_tree.result()
+    assert by_block.result().n_trees == len(HAND_MADE) + len(extra) + 400

@@ -63,9 +63,10 @@ def evaluate(
     if detail:
         if len(paths) != 1 or len(books) != 1:
             raise typer.BadParameter("--detail takes exactly one checkpoint and one --treebank", param_hint="--detail")
-        _print_detail(paths[0], books[0], neutral, as_json)
+        _print_detail(paths[0], books[0], neutral, as_json, progress)
         return
-    bar = tqdm(total=len(paths), unit="checkpoint", disable=None if progress is None else not progress, leave=False)
+    bar = tqdm(unit="tree", desc=f"{len(paths)} checkpoint(s) x {len(books)} treebank(s)",
+               disable=None if progress is None else not progress, leave=False)
     rows = evaluate_many(paths, books, jobs or os.cpu_count() or 1, neutral, progress=bar.update)
     bar.close()
     mark_best(rows, best_by)
@@ -108,14 +109,15 @@ def _write_outputs(out: Path, rows) -> None:
     typer.echo(f"wrote {base}.csv and {base}.json", err=True)
 
 
-def _print_detail(path: Path, treebank: str, neutral: int | None, as_json: bool) -> None:
-    from rntn_engine.data.treebank_reader import read_trees
+def _print_detail(path: Path, treebank: str, neutral: int | None, as_json: bool, progress: bool | None) -> None:
+    from tqdm import tqdm
+
     from rntn_engine.run.checkpoint_evaluation import detail_report
     from rntn_engine.run.checkpoints import load_checkpoint
 
     checkpoint = load_checkpoint(path)
-    trees = read_trees(treebank, num_classes=checkpoint.config.num_classes, binarise=checkpoint.config.binarise)
-    report = detail_report(checkpoint, trees, neutral)
+    with tqdm(unit="tree", disable=None if progress is None else not progress, leave=False) as bar:
+        report = detail_report(checkpoint, treebank, neutral, progress=bar.update)
     if as_json:
         typer.echo(json.dumps(report, indent=2))
         return

@@ -9,15 +9,16 @@ from typing import Annotated
 
 import typer
 
-from rntn_engine.cli.shared_options import ThreadsOption
+from rntn_engine.cli.shared_options import ProgressOption, ThreadsOption
 
 def predict(
     checkpoint: Annotated[Path, typer.Argument(help="A model.h5 or checkpoint file.")],
-    input_file: Annotated[str, typer.Argument(metavar="INPUT", help="File of bracketed trees or tokenised sentences, one per line; - for standard input.")],
+    input_file: Annotated[str, typer.Argument(metavar="INPUT", help="File of bracketed trees (each on one line or spread over several) or tokenised sentences, one per line; - for standard input.")],
     output_format: Annotated[str, typer.Option("--format", help="trees: bracketed trees with predicted labels; jsonl: per sentence, every node's span text, label and class probabilities.")] = "trees",
     input_format: Annotated[str, typer.Option("--input-format", help="auto (a line starting with '(' is a tree, any other a sentence), trees, or sentences.")] = "auto",
     output: Annotated[str, typer.Option("--output", "-o", help="Write here instead of standard output.")] = "-",
     threads: ThreadsOption = 1,
+    progress: ProgressOption = None,
 ) -> None:
     """Predict a label for every node of every input tree or sentence, streaming any size of input.
 
@@ -26,6 +27,8 @@ def predict(
     real parse gives better results. Unknown words use the unknown-word vector and are counted
     in the summary printed on standard error.
     """
+    from tqdm import tqdm
+
     from rntn_engine.data.treebank_writer import format_tree
     from rntn_engine.run.checkpoints import load_checkpoint
     from rntn_engine.run.prediction import PredictionSummary, predict_lines, prediction_record
@@ -42,13 +45,18 @@ def predict(
         raise typer.BadParameter(f"{input_file}: {exc.strerror}", param_hint="INPUT") from None
     sink = sys.stdout if output == "-" else open(output, "w", encoding="utf-8")
     summary = PredictionSummary()
+    if progress is None:
+        progress = sys.stderr.isatty() and not (sink is sys.stdout and sys.stdout.isatty())
+    bar = tqdm(unit="tree", disable=not progress, leave=False, file=sys.stderr)
     try:
         for predicted in predict_lines(model, _lines(stream, source), source, input_format, summary, threads):
+            bar.update(1)
             if output_format == "trees":
                 sink.write(format_tree(predicted.tree, predicted.labels) + "\n")
             else:
                 sink.write(json.dumps(prediction_record(predicted), ensure_ascii=False) + "\n")
     finally:
+        bar.close()
         if stream is not sys.stdin:
             stream.close()
         if sink is not sys.stdout:

@@ -19,7 +19,6 @@ def report(
     """Write learning curves (training and dev loss, dev scores, the best checkpoint marked) and the
     confusion matrices of the best checkpoint (roots and all nodes, with the run's class names) as
     PNG files. Needs matplotlib: pip install 'rntn_engine[plot]'."""
-    from rntn_engine.data.treebank_reader import read_trees
     from rntn_engine.run.checkpoint_evaluation import detail_report
     from rntn_engine.run.checkpoints import load_checkpoint, newest_valid_checkpoint
     from rntn_engine.run.report_figures import (
@@ -54,8 +53,7 @@ def report(
         typer.echo("no dev file in the run and no --treebank: confusion matrices skipped", err=True)
     else:
         best = load_checkpoint(best_path)
-        trees = read_trees(book, num_classes=config.num_classes, binarise=config.binarise)
-        detail = detail_report(best, trees)
+        detail = detail_report(best, str(book), binarise=config.binarise)
         confusions = {f"roots: fine-grained accuracy {detail['scores']['fine_root']:.3f}":
                       np.array(detail["roots"]["confusion"]),
                       f"all nodes: fine-grained accuracy {detail['scores']['fine_all']:.3f}":

@@ -11,10 +11,10 @@ from typing import Annotated, Optional
 import typer
 from tqdm import tqdm
 
+import rntn_engine.kernels  # noqa: F401  guards numba's on-disk cache, which also holds the treebank scanner
 from rntn_engine.cli.shared_options import JsonOption
-
 from rntn_engine.cli.tables import format_count, format_number, format_share, render_pairs, render_table
-from rntn_engine.data.treebank_reader import iter_trees
+from rntn_engine.data.treebank_bulk import iter_tree_blocks
 from rntn_engine.data.treebank_stats import LabelDistribution, StatsAccumulator, TreebankStats
 
 
@@ -27,7 +27,7 @@ class BinariseMode(str, Enum):
 def stats(
     treebanks: Annotated[
         list[Path],
-        typer.Argument(help="Treebank files: one bracketed tree per line.", metavar="TREEBANK", show_default=False),
+        typer.Argument(help="Treebank files: bracketed trees, one per line (or spread over several).", metavar="TREEBANK", show_default=False),
     ],
     json_output: JsonOption = False,
     num_classes: Annotated[
@@ -58,7 +58,7 @@ def stats(
     node: 1, 2, 3-5, 6-10, 11-20, 21+).
 
     \b
-    Tree format, one tree per line:
+    Tree format, one tree per line (or spread over several, indented after the first):
       (3 (2 The) (4 (3 roses) (2 bloomed)))
       labels are class numbers 0..C-1, or _ for an unlabelled node;
       write brackets inside words as -LRB- -RRB- -LCB- -RCB- -LSB- -RSB-;
@@ -66,7 +66,7 @@ def stats(
       unary chains collapse (the outermost label wins).
 
     Exit status: 0 when every file is well formed, 1 on the first malformed
-    line (reported as FILE:LINE:COL: what was expected), 2 on bad usage.
+    tree (reported as FILE:LINE:COL: what was expected), 2 on bad usage.
     A progress bar appears on stderr when it is a terminal.
     """
     accumulators = [StatsAccumulator(num_classes) for _ in treebanks]
@@ -76,9 +76,10 @@ def stats(
     for path, accumulator in zip(treebanks, accumulators):
         sinks = (accumulator, total) if several else (accumulator,)
         with tqdm(desc=path.name, unit=" lines", disable=not show_progress, leave=False, file=sys.stderr) as bar:
-            for tree in iter_trees(path, num_classes=num_classes, binarise=binarise.value, progress=bar.update):
+            for block in iter_tree_blocks(path, num_classes=num_classes, binarise=binarise.value,
+                                          progress=bar.update):
                 for sink in sinks:
-                    sink.add(tree)
+                    sink.add_block(block)
     per_file = [(str(path), accumulator.result()) for path, accumulator in zip(treebanks, accumulators)]
     if json_output:
         report = {

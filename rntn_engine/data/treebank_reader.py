@@ -1,8 +1,8 @@
-"""Read a bracketed treebank: one phrase-labelled tree per line, into flat :class:`Tree` objects.
+"""Read a bracketed treebank: phrase-labelled trees, one after another, into flat :class:`Tree` objects.
 
 The format
 ----------
-One tree per line, in Penn-Treebank-style brackets::
+One tree per record, in Penn-Treebank-style brackets::
 
     (3 (2 The) (4 (3 roses) (2 bloomed)))
 
@@ -11,12 +11,22 @@ One tree per line, in Penn-Treebank-style brackets::
   (stored as ``UNLABELLED = -1``; such a node contributes no loss). Labels are
   ASCII digits only: ``-1`` is an error, and so is a label ``>= num_classes``
   when ``num_classes`` is given.
-* Blank lines, and lines whose first non-blank character is ``#``, are skipped.
-  A comment after a tree on the same line is an error (text after the tree).
-* Tokens are separated by ASCII spaces and tabs (also ``\\r \\f \\v``); every
-  other character, a non-breaking space included, belongs to a word. Missing
-  spaces next to brackets (``(3(2 a)(1 b))``), a UTF-8 byte-order mark, CRLF
-  line ends and a missing final newline are accepted quietly.
+* Records: a tree usually fills one line, but it may be spread over several, as
+  parsers' pretty printers write long trees. A tree starts on a line of its own
+  and ends at the end of the line where its brackets balance. While a tree is
+  open, every further line belongs to it, except that a line starting with ``(``
+  in its first column always starts a new tree: the lines after the first of a
+  multi-line tree must be indented (pretty printers indent them), so a tree
+  missing its ``)`` is reported where it ends instead of swallowing the trees
+  after it. After a tree's last ``)`` the rest of its line must be blank: text
+  or a second tree there is an error.
+* Between trees, blank lines and lines whose first non-blank character is ``#``
+  are skipped. Inside an open tree a ``#`` is an ordinary word character.
+* Tokens are separated by ASCII spaces and tabs (also ``\\r \\f \\v``, and line
+  breaks inside a tree); every other character, a non-breaking space included,
+  belongs to a word. Missing spaces next to brackets (``(3(2 a)(1 b))``), a
+  UTF-8 byte-order mark, CRLF line ends and a missing final newline are
+  accepted quietly.
 * Words cannot hold ``(`` or ``)``: write ``-LRB-`` and ``-RRB-`` (likewise
   ``-LCB- -RCB- -LSB- -RSB-`` for ``{ } [ ]``); see :mod:`bracket_tokens`.
   A word glued to a ``(`` (``a(b``) is reported as a literal bracket in a word.
@@ -40,25 +50,36 @@ Nodes come out in post-order whatever the mode (left factoring builds each new
 node as soon as its two children are complete), so trees read from a binary
 input and from its n-ary equivalent are :meth:`Tree.same_as` each other.
 
+Two readers, one result
+-----------------------
+:func:`iter_trees` and :func:`read_trees` read a file in blocks with the bulk
+scanner of :mod:`treebank_bulk` (tens of MB/s). Wherever that scanner meets
+anything it does not accept, bad input included, the record is read again by
+the exact reader of this module, which gives every message its location; the
+trees are the same either way (tested). :func:`iter_trees_exact` is the exact
+reader alone.
+
 Errors
 ------
 Every problem raises :class:`TreebankError` with one line
 ``FILE:LINE:COL: what was expected``; columns are 1-based and count characters,
 and point at the offending character (or just past the end of the line when
-something is missing there). The reader never raises another exception type
-for bad file content and never recurses, so 10,000-deep nesting is fine.
-Files are read as bytes and decoded line by line, so an invalid UTF-8 byte is
-located exactly; a NUL byte, or a compression or HDF5 signature at the start,
-is reported as a binary or compressed file. A file with no tree at all is an
-error. Lines longer than :data:`MAX_LINE_BYTES` are refused (no parse tree is
-that long; such a "line" is almost always a binary file).
+something is missing there), on the line that holds it. The reader never raises
+another exception type for bad file content and never recurses, so 10,000-deep
+nesting is fine. Files are read as bytes and decoded line by line, so an invalid
+UTF-8 byte is located exactly; a NUL byte, or a compression or HDF5 signature at
+the start, is reported as a binary or compressed file. A file with no tree at
+all is an error. Lines longer than :data:`MAX_LINE_BYTES` and trees longer than
+:data:`MAX_TREE_BYTES` are refused (no parse tree is that long; such a "line" is
+almost always a binary file, such a tree a missing ``)``).
 """
 
 from __future__ import annotations
 
+import bisect
 import os
 import re
-from typing import Callable, Iterator
+from typing import BinaryIO, Callable, Iterator
 
 import numpy as np
 
@@ -68,12 +89,13 @@ from rntn_engine.data.tree import UNLABELLED, Tree, tree_from_arrays
 
 BINARISE_MODES = ("right", "left", "strict")
 MAX_LINE_BYTES = 4 * 1024 * 1024  # longest accepted line, in bytes
+MAX_TREE_BYTES = 16 * 1024 * 1024  # longest accepted tree, in bytes over all its lines
 MAX_LABEL = 2**31 - 1  # labels are stored as int32
-PROGRESS_EVERY = 4096  # lines between two calls of the progress callback
+PROGRESS_EVERY = 4096  # lines between two calls of the progress callback (exact reader)
 
 _TOKEN_RE = re.compile(r"[()]|[^()" + re.escape(SEPARATORS) + r"]+")
-_BOM = b"\xef\xbb\xbf"
-_EXPECT_TEXT = "expected UTF-8 text with one bracketed tree per line"
+BOM = b"\xef\xbb\xbf"
+_EXPECT_TEXT = "expected UTF-8 text with bracketed trees"
 # Leading bytes of files that are certainly not a treebank, and what they are.
 _SIGNATURES = (
     (re.compile(rb"\x1f\x8b"), "binary or compressed file (gzip data)"),
@@ -96,22 +118,56 @@ def parse_tree(
     binarise: str = "right",
     ignore_labels: bool = False,
 ) -> Tree:
-    """Parse one tree written on one line; ``path`` and ``line`` only label errors and ``Tree.source``.
+    """Parse one tree, on one line or spread over several; ``path`` and ``line`` (of the
+    text's first line) only label errors and ``Tree.source``.
 
+    The tree must start on the first line; blank lines may follow it, nothing else.
     ``ignore_labels=True`` accepts any label token (a class number, ``_``, or a parser's
     syntactic category such as ``NP``) and stores every node as unlabelled: the mode for
     trees whose labels are to be predicted.
     """
-    mode = _check_options(num_classes, binarise)
-    text = text.rstrip("\r\n")
-    if "\n" in text:
-        raise TreebankError(path, "a tree must fit on one line: found a line break", line, text.index("\n") + 1)
-    body = text.lstrip(SEPARATORS)
+    mode = check_options(num_classes, binarise)
+    labels = _AnyLabel() if ignore_labels else LabelReader(num_classes)
+    lines = [t.rstrip("\r") for t in text.rstrip("\r\n").split("\n")]
+    body = lines[0].lstrip(SEPARATORS)
     if not body or body[0] == "#":
         found = "a comment" if body else "an empty line"
-        raise TreebankError(path, f"expected a bracketed tree, found {found}", line, len(text) - len(body) + 1)
-    labels = _AnyLabel() if ignore_labels else _LabelReader(num_classes)
-    return _parse_line(text, str(path), line, labels, mode)
+        raise TreebankError(path, f"expected a bracketed tree, found {found}", line, len(lines[0]) - len(body) + 1)
+    records = RecordAssembler()
+    for k, piece in enumerate(lines):
+        done = records.feed(line + k, piece)
+        if done is not None:
+            break
+    else:
+        done = records.finish()
+    record, cut_by = done
+    tree = _parse_record(record, str(path), labels, mode, cut_by, end="the end of the text")
+    for extra_line, piece in enumerate(lines[len(record):], start=line + len(record)):
+        rest = piece.lstrip(SEPARATORS)
+        if rest:
+            raise TreebankError(
+                path, f"expected one tree, found more text after it: {_quote(rest)}", extra_line,
+                len(piece) - len(rest) + 1,
+            )
+    return tree
+
+
+def parse_record(
+    record: list[tuple[int, str]],
+    *,
+    path: str = "<string>",
+    cut_by: int | None = None,
+    num_classes: int | None = None,
+    binarise: str = "right",
+    ignore_labels: bool = False,
+) -> Tree:
+    """Parse one record of lines as grouped by :class:`RecordAssembler` (``cut_by`` as it returned it).
+
+    For readers of other line sources, such as standard input; options as in :func:`parse_tree`.
+    """
+    mode = check_options(num_classes, binarise)
+    labels = _AnyLabel() if ignore_labels else LabelReader(num_classes)
+    return _parse_record(record, str(path), labels, mode, cut_by, end="the end of the input")
 
 
 def iter_trees(
@@ -121,14 +177,30 @@ def iter_trees(
     binarise: str = "right",
     progress: Callable[[int], None] | None = None,
 ) -> Iterator[Tree]:
-    """Yield the trees of a treebank file one by one, reading it line by line.
+    """Yield the trees of a treebank file one by one, reading it in blocks (module docstring).
 
     ``progress``, if given, is called with the number of lines read since its
-    previous call (every :data:`PROGRESS_EVERY` lines and at the end). Raises
-    TreebankError at the first bad line, or at the end if the file held no tree.
+    previous call, at least once per block and at the end. Raises TreebankError at
+    the first bad record, or at the end if the file held no tree. Memory is bounded
+    by one block, not by the file.
     """
-    mode = _check_options(num_classes, binarise)  # now, not at the first next()
-    return _iter_file(os.fspath(path), _LabelReader(num_classes), mode, progress)
+    from rntn_engine.data.treebank_bulk import iter_tree_blocks, trees_of_block  # it builds on this module
+
+    blocks = iter_tree_blocks(path, num_classes=num_classes, binarise=binarise, progress=progress)  # checks now
+    return (tree for block in blocks for tree in trees_of_block(block))
+
+
+def iter_trees_exact(
+    path: str | os.PathLike,
+    *,
+    num_classes: int | None = None,
+    binarise: str = "right",
+    progress: Callable[[int], None] | None = None,
+) -> Iterator[Tree]:
+    """:func:`iter_trees` with the exact reader alone, line by line (``progress`` every
+    :data:`PROGRESS_EVERY` lines): the reference the bulk reader is tested against."""
+    mode = check_options(num_classes, binarise)
+    return _iter_file(os.fspath(path), LabelReader(num_classes), mode, progress)
 
 
 def read_trees(
@@ -142,50 +214,172 @@ def read_trees(
     return list(iter_trees(path, num_classes=num_classes, binarise=binarise, progress=progress))
 
 
+# --- records: which lines form one tree ----------------------------------------------------------
+
+
+class RecordAssembler:
+    """Groups lines into tree records by the rules of the module docstring.
+
+    :meth:`feed` takes the lines one by one, without their line break, and returns
+    ``(lines, cut_by)`` when a record is complete: ``lines`` is the record as a list
+    of ``(line number, text)``; ``cut_by`` is None for a record whose brackets
+    balanced, or the number of the line that started a new tree while this one was
+    still open (parsing such a record always raises its error). :meth:`finish`
+    returns what is still open at the end of the input, or None.
+    """
+
+    __slots__ = ("lines", "depth")
+
+    def __init__(self) -> None:
+        self.lines: list[tuple[int, str]] = []
+        self.depth = 0  # '(' minus ')' so far in the open record
+
+    @property
+    def open(self) -> bool:
+        return bool(self.lines)
+
+    def feed(self, line_no: int, text: str) -> tuple[list[tuple[int, str]], int | None] | None:
+        if not self.lines:
+            body = text.lstrip(SEPARATORS)
+            if not body or body[0] == "#":
+                return None  # blank line or comment between trees
+        elif text[:1] == "(":
+            record, self.lines, self.depth = self.lines, [], 0
+            return record, line_no
+        self.lines.append((line_no, text))
+        self.depth += text.count("(") - text.count(")")
+        if self.depth > 0:
+            return None
+        record, self.lines, self.depth = self.lines, [], 0
+        return record, None
+
+    def finish(self) -> tuple[list[tuple[int, str]], int | None] | None:
+        if not self.lines:
+            return None
+        record, self.lines, self.depth = self.lines, [], 0
+        return record, None
+
+
 # --- checks on whole lines and files -------------------------------------------------------------
 
 
-def _iter_file(name: str, labels: _LabelReader, mode: str, progress: Callable[[int], None] | None) -> Iterator[Tree]:
-    """The generator behind :func:`iter_trees`: bytes line by line, decoded, checked and parsed."""
+class LineSource:
+    """Raw lines of a binary file, optionally after bytes already read from it (``prefix``)."""
+
+    __slots__ = ("f", "buffer", "pos")
+
+    def __init__(self, f: BinaryIO, prefix: bytes = b"") -> None:
+        self.f = f
+        self.buffer = prefix
+        self.pos = 0
+
+    def readline(self, limit: int) -> bytes:
+        if self.pos >= len(self.buffer):
+            return self.f.readline(limit)
+        end = self.buffer.find(b"\n", self.pos, self.pos + limit)
+        stop = end + 1 if end >= 0 else min(self.pos + limit, len(self.buffer))
+        piece = self.buffer[self.pos : stop]
+        self.pos = stop
+        if end < 0 and stop == len(self.buffer) and len(piece) < limit:
+            piece += self.f.readline(limit - len(piece))  # the line goes on in the file
+        return piece
+
+    def unread(self) -> bytes:
+        """The part of ``prefix`` not read yet."""
+        return self.buffer[self.pos :]
+
+
+class ExactRecordReader:
+    """The exact reader: decodes and checks line by line, assembles records, parses each.
+
+    Used on its own (:func:`iter_trees_exact`) and by the bulk reader for every record
+    it leaves to this one; ``line_no`` and ``offset`` are the line number and file byte
+    offset just before the first line of ``source``.
+    """
+
+    def __init__(self, source: LineSource, name: str, labels: "LabelReader", mode: str,
+                 line_no: int = 0, offset: int = 0) -> None:
+        self.source = source
+        self.name = name
+        self.labels = labels
+        self.mode = mode
+        self.line_no = line_no
+        self.offset = offset
+        self.records = RecordAssembler()
+        self.record_bytes = 0  # bytes of the lines of the open record so far
+        self.record_line = 0  # first line of the last record read
+        self.unreported = 0  # lines read and not yet passed to a progress callback
+
+    def next_tree(self) -> Tree | None:
+        """The next tree, or None at the end of the file."""
+        name, records = self.name, self.records
+        while True:
+            bom = len(BOM) if self.line_no == 0 and self.offset == len(BOM) else 0  # read past already
+            raw = self.source.readline(MAX_LINE_BYTES + 1 - bom)
+            if not raw:
+                done = records.finish()
+                if done is None:
+                    return None
+                self.record_line = done[0][0][0]
+                return _parse_record(done[0], name, self.labels, self.mode, None, end="the end of the file")
+            self.line_no += 1
+            self.unreported += 1
+            if len(raw) + bom > MAX_LINE_BYTES and raw[-1:] != b"\n":
+                raise TreebankError(name, f"line longer than {MAX_LINE_BYTES} bytes: {_EXPECT_TEXT}", self.line_no, 1)
+            if self.offset == 0 and raw.startswith(BOM):
+                raw = raw[len(BOM) :]
+                self.offset = len(BOM)
+            text = _decode_line(raw, name, self.line_no, self.offset).rstrip("\r\n")
+            self.offset += len(raw)
+            was_open = records.open
+            done = records.feed(self.line_no, text)
+            if done is not None:
+                self.record_line = done[0][0][0]
+                return _parse_record(done[0], name, self.labels, self.mode, done[1], end="the end of the file")
+            if not records.open:
+                continue
+            self.record_bytes = (self.record_bytes if was_open else 0) + len(raw)
+            if self.record_bytes > MAX_TREE_BYTES:
+                first_line, first_text = records.lines[0]
+                column = len(first_text) - len(first_text.lstrip(SEPARATORS)) + 1
+                raise TreebankError(
+                    name, f"tree still open after {MAX_TREE_BYTES} bytes: expected its closing ')' "
+                    "(a missing ')' makes the lines after it part of this tree)", first_line, column,
+                )
+
+
+def _iter_file(name: str, labels: LabelReader, mode: str, progress: Callable[[int], None] | None) -> Iterator[Tree]:
+    """The generator behind :func:`iter_trees_exact`."""
+    n_trees = 0
     try:
         with open(name, "rb") as f:
-            _check_signature(name, f.peek(16)[:16])
-            line_no = 0
-            offset = 0  # bytes of the file before this line
-            n_trees = 0
-            unreported = 0  # lines not yet passed to `progress`
+            check_signature(name, f.peek(16)[:16])
+            reader = ExactRecordReader(LineSource(f), name, labels, mode)
             while True:
-                raw = f.readline(MAX_LINE_BYTES + 1)
-                if not raw:
+                tree = reader.next_tree()
+                if progress is not None and (reader.unreported >= PROGRESS_EVERY or tree is None):
+                    while reader.unreported >= PROGRESS_EVERY:
+                        progress(PROGRESS_EVERY)
+                        reader.unreported -= PROGRESS_EVERY
+                    if tree is None and reader.unreported:
+                        progress(reader.unreported)
+                        reader.unreported = 0
+                if tree is None:
                     break
-                line_no += 1
-                if len(raw) > MAX_LINE_BYTES and raw[-1:] != b"\n":
-                    raise TreebankError(
-                        name, f"line longer than {MAX_LINE_BYTES} bytes: {_EXPECT_TEXT}", line_no, 1
-                    )
-                if line_no == 1 and raw.startswith(_BOM):
-                    raw = raw[len(_BOM) :]
-                    offset = len(_BOM)
-                text = _decode_line(raw, name, line_no, offset).rstrip("\r\n")
-                offset += len(raw)
-                body = text.lstrip(SEPARATORS)
-                if body and body[0] != "#":
-                    yield _parse_line(text, name, line_no, labels, mode)
-                    n_trees += 1
-                unreported += 1
-                if progress is not None and unreported == PROGRESS_EVERY:
-                    progress(unreported)
-                    unreported = 0
+                n_trees += 1
+                yield tree
     except OSError as exc:
         raise TreebankError(name, f"cannot read the file: {exc.strerror or exc}") from None
-    if progress is not None and unreported:
-        progress(unreported)
     if n_trees == 0:
-        what = "empty file" if line_no == 0 else f"no tree in {line_no} line(s) (all blank or comments)"
-        raise TreebankError(name, f"{what}: expected one bracketed tree per line", 1, 1)
+        raise no_tree_error(name, reader.line_no)
 
 
-def _check_options(num_classes: int | None, binarise: str) -> str:
+def no_tree_error(name: str, n_lines: int) -> TreebankError:
+    what = "empty file" if n_lines == 0 else f"no tree in {n_lines} line(s) (all blank or comments)"
+    return TreebankError(name, f"{what}: expected bracketed trees", 1, 1)
+
+
+def check_options(num_classes: int | None, binarise: str) -> str:
     if binarise not in BINARISE_MODES:
         raise ValueError(f"binarise must be one of {BINARISE_MODES}, not {binarise!r}")
     if num_classes is not None and (not isinstance(num_classes, int) or num_classes < 1):
@@ -193,7 +387,8 @@ def _check_options(num_classes: int | None, binarise: str) -> str:
     return binarise
 
 
-def _check_signature(name: str, head: bytes) -> None:
+def check_signature(name: str, head: bytes) -> None:
+    """TreebankError when the first bytes of a file show it is binary, compressed or UTF-16."""
     for signature, what in _SIGNATURES:
         if signature.match(head):
             raise TreebankError(name, f"{what}: {_EXPECT_TEXT}", 1, 1)
@@ -221,7 +416,7 @@ def _decode_line(raw: bytes, name: str, line_no: int, offset: int) -> str:
 # --- labels --------------------------------------------------------------------------------------
 
 
-class _LabelReader:
+class LabelReader:
     """Label token -> class number, with a cache of the tokens already seen (a few at most)."""
 
     __slots__ = ("known", "num_classes", "expected")
@@ -250,7 +445,7 @@ class _LabelReader:
         return f"{self.expected}; found {_quote(token)}"
 
 
-class _AnyLabel(_LabelReader):
+class _AnyLabel(LabelReader):
     """Every label token reads as unlabelled (see ``ignore_labels``)."""
 
     def __init__(self) -> None:
@@ -262,16 +457,27 @@ class _AnyLabel(_LabelReader):
         return UNLABELLED
 
 
-# --- the line parser -----------------------------------------------------------------------------
+# --- the record parser ---------------------------------------------------------------------------
 
 
-def _parse_line(text: str, path: str, line_no: int, labels: _LabelReader, mode: str) -> Tree:
-    """Parse one line holding one tree, binarising and collapsing as it goes (no recursion).
+def _parse_record(lines: list[tuple[int, str]], path: str, labels: LabelReader, mode: str,
+                  cut_by: int | None, end: str) -> Tree:
+    """Parse one record (its lines, see :class:`RecordAssembler`) holding one tree, binarising
+    and collapsing as it goes (no recursion).
 
     A stack holds the open nodes; a node is appended to the flat arrays when its
-    ``)`` is read, so the arrays come out in post-order.
+    ``)`` is read, so the arrays come out in post-order. ``cut_by`` and ``end`` only
+    word the error for a tree still open at the end of the record.
     """
-    tokens = _TOKEN_RE.findall(text)
+    if len(lines) == 1:
+        tokens = _TOKEN_RE.findall(lines[0][1])
+        record = _Record(path, lines, None, len(tokens))
+    else:
+        tokens, first_token = [], []
+        for _, text in lines:
+            first_token.append(len(tokens))
+            tokens.extend(_TOKEN_RE.findall(text))
+        record = _Record(path, lines, first_token, len(tokens))
     n_tokens = len(tokens)
     known_labels = labels.known
     word_of: list[int] = []  # the four columns of the Tree, in post-order
@@ -289,12 +495,12 @@ def _parse_line(text: str, path: str, line_no: int, labels: _LabelReader, mode: 
             if stack:
                 parent = stack[-1]
                 if parent[2] >= 0:
-                    raise _node_after_word(text, path, line_no, i)
+                    raise record.node_after_word(tokens, i)
                 kids = parent[3]
                 if len(kids) == 2 and mode != "right":
                     if mode == "strict":
-                        raise _error(
-                            text, path, line_no, i,
+                        raise record.error(
+                            i,
                             "node with more than two children in strict mode: expected ')' "
                             "(binarise 'right' or 'left' accepts n-ary nodes)",
                         )
@@ -306,21 +512,22 @@ def _parse_line(text: str, path: str, line_no: int, labels: _LabelReader, mode: 
                     kids[0] = len(label) - 1
                     kids.pop()
             elif root >= 0:
-                raise _error(
-                    text, path, line_no, i, "a second tree starts on the same line: expected one tree per line"
+                raise record.error(
+                    i, "a second tree starts on the same line: after a tree's last ')' the rest of its line "
+                    "must be blank; start each tree on a line of its own",
                 )
             if i + 1 == n_tokens:
-                raise _error(text, path, line_no, i + 1, f"{labels.expected}; found end of line")
+                raise record.error(i + 1, f"{labels.expected}; found {_end_of_record(cut_by, end)}")
             label_token = tokens[i + 1]
             value = known_labels.get(label_token)
             if value is None:
                 if label_token == "(" or label_token == ")":
                     what = "missing label" if label_token == "(" else "empty node '()'"
-                    raise _error(text, path, line_no, i + 1, f"{what}: {labels.expected}; found {label_token!r}")
+                    raise record.error(i + 1, f"{what}: {labels.expected}; found {label_token!r}")
                 value = labels.read(label_token)
                 if isinstance(value, str):
                     hint = " (a '(' inside a word is written -LRB-)" if stack else ""
-                    raise _error(text, path, line_no, i + 1, value + hint)
+                    raise record.error(i + 1, value + hint)
             stack.append([value, i, -1, []])
             i += 2
         elif token == ")":
@@ -329,7 +536,7 @@ def _parse_line(text: str, path: str, line_no: int, labels: _LabelReader, mode: 
                     message = "extra ')' after the end of the tree (a ')' inside a word is written -RRB-)"
                 else:
                     message = "expected '(' to start a tree, found ')'"
-                raise _error(text, path, line_no, i, message)
+                raise record.error(i, message)
             value, opened, word_token, kids = stack.pop()
             n_kids = len(kids)
             if word_token >= 0:  # leaf
@@ -347,8 +554,8 @@ def _parse_line(text: str, path: str, line_no: int, labels: _LabelReader, mode: 
                 label.append(value)
             elif n_kids == 1:  # unary: the child stands for the chain; the outermost label wins
                 if mode == "strict":
-                    raise _error(
-                        text, path, line_no, opened,
+                    raise record.error(
+                        opened,
                         "node with a single child in strict mode: expected two children or one word "
                         "(binarise 'right' or 'left' collapses unary chains)",
                     )
@@ -356,8 +563,8 @@ def _parse_line(text: str, path: str, line_no: int, labels: _LabelReader, mode: 
                 if value != UNLABELLED:
                     label[node] = value
             elif n_kids == 0:
-                raise _error(
-                    text, path, line_no, i, "empty node: expected a word or child nodes after the label, found ')'"
+                raise record.error(
+                    i, "empty node: expected a word or child nodes after the label, found ')'"
                 )
             else:  # right factoring: (l a b c d) -> (l a (_ b (_ c d)))
                 node = kids[-1]
@@ -382,77 +589,106 @@ def _parse_line(text: str, path: str, line_no: int, labels: _LabelReader, mode: 
                 if root >= 0:
                     message = (
                         f"unexpected text after the end of the tree: {_quote(token)} "
-                        "(one tree per line; a comment needs a line of its own starting with '#')"
+                        "(after a tree's last ')' the rest of its line must be blank; a comment needs a line of its own "
+                        "starting with '#')"
                     )
                 else:
                     message = f"expected '(' to start a tree, found {_quote(token)}"
-                raise _error(text, path, line_no, i, message)
+                raise record.error(i, message)
             parent = stack[-1]
             if parent[2] >= 0:
-                raise _error(
-                    text, path, line_no, i,
+                raise record.error(
+                    i,
                     f"leaf with two tokens {_quote(tokens[parent[2]])} and {_quote(token)}: "
                     "a leaf is (label word) with exactly one word; give each word a node of its own",
                 )
             if parent[3]:
-                raise _word_after_node(text, path, line_no, i)
+                raise record.word_after_node(tokens, i)
             parent[2] = i
             i += 1
     if stack:
-        opened = _column(text, stack[-1][1])
-        raise _error(
-            text, path, line_no, n_tokens,
-            f"expected ')' to close the node opened at column {opened}, found end of line "
-            f"({len(stack)} node(s) still open)",
-        )
+        raise record.unclosed(n_tokens, stack[-1][1], len(stack), cut_by, end)
     if root < 0:
-        raise _error(text, path, line_no, 0, "expected a bracketed tree, found an empty line")
+        raise record.error(0, "expected a bracketed tree, found an empty line")
     columns = np.array((word_of, left, right, label), dtype=np.int32)
-    return tree_from_arrays(words, columns[0], columns[1], columns[2], columns[3], source=f"{path}:{line_no}")
+    return tree_from_arrays(words, columns[0], columns[1], columns[2], columns[3], source=f"{path}:{lines[0][0]}")
 
 
-# --- error messages (only built when a line is bad) ----------------------------------------------
+# --- error messages (only built when a record is bad) --------------------------------------------
+
+
+def _end_of_record(cut_by: int | None, end: str) -> str:
+    return end if cut_by is None else f"a new tree starting in the first column of line {cut_by}"
+
+
+class _Record:
+    """The lines of one record, to place a token (by its index in the record) on its line and column."""
+
+    __slots__ = ("path", "lines", "first_token", "n_tokens")
+
+    def __init__(self, path: str, lines: list[tuple[int, str]], first_token: list[int] | None, n_tokens: int) -> None:
+        self.path = path
+        self.lines = lines
+        self.first_token = first_token  # index of each line's first token; None for a one-line record
+        self.n_tokens = n_tokens
+
+    def locate(self, token_index: int) -> tuple[int, int, str, int]:
+        """(line number, 1-based column, line text, index of the token in its line) of a token; for
+        the index after the last token, one past the end of the last line that holds a token."""
+        if self.first_token is None:
+            k = 0
+        else:
+            k = bisect.bisect_right(self.first_token, token_index) - 1
+            while k > 0 and self.first_token[k] >= self.n_tokens:  # past the end: back to the last token
+                k -= 1
+        local = token_index - (0 if self.first_token is None else self.first_token[k])
+        line_no, text = self.lines[k]
+        spans = _token_spans(text)
+        if local < len(spans):
+            return line_no, spans[local][0] + 1, text, local
+        return line_no, len(text) + 1, text, len(spans)
+
+    def error(self, token_index: int, message: str) -> TreebankError:
+        line_no, column, _, _ = self.locate(token_index)
+        return TreebankError(self.path, message, line_no, column)
+
+    def glued(self, token_index: int) -> bool:
+        """Whether a token touches the one before it on its line, with no space in between."""
+        _, _, text, local = self.locate(token_index)
+        spans = _token_spans(text)
+        return 0 < local < len(spans) and spans[local - 1][1] == spans[local][0]
+
+    def unclosed(self, n_tokens: int, opened: int, still_open: int, cut_by: int | None, end: str) -> TreebankError:
+        line_no, column, _, _ = self.locate(n_tokens)
+        open_line, open_column, _, _ = self.locate(opened)
+        where = f"column {open_column}" if open_line == line_no else f"line {open_line}, column {open_column}"
+        message = f"expected ')' to close the node opened at {where}, found {_end_of_record(cut_by, end)} " \
+                  f"({still_open} node(s) still open)"
+        if cut_by is not None:
+            message += "; the lines of a tree after its first must be indented"
+        return TreebankError(self.path, message, line_no, column)
+
+    def node_after_word(self, tokens: list[str], i: int) -> TreebankError:
+        """A '(' after a leaf's word: a literal bracket when glued to the word, else a word beside a node."""
+        word = tokens[i - 1]
+        if self.glued(i):
+            message = f"literal '(' inside the word {_quote(word + '(')}: write '(' as -LRB- and ')' as -RRB-"
+        else:
+            message = f"expected ')' after the word {_quote(word)}, found '(': a node holds either one word or child nodes"
+        return self.error(i, message)
+
+    def word_after_node(self, tokens: list[str], i: int) -> TreebankError:
+        message = (
+            f"expected '(' or ')' after a child node, found the word {_quote(tokens[i])}: "
+            "a node holds either one word or child nodes"
+        )
+        if self.glued(i):
+            message += " (a ')' inside a word is written -RRB-)"
+        return self.error(i, message)
 
 
 def _token_spans(text: str) -> list[tuple[int, int]]:
     return [m.span() for m in _TOKEN_RE.finditer(text)]
-
-
-def _column(text: str, token_index: int) -> int:
-    """1-based column of a token; one past the end of the line for the index after the last token."""
-    spans = _token_spans(text)
-    return spans[token_index][0] + 1 if token_index < len(spans) else len(text) + 1
-
-
-def _glued(text: str, token_index: int) -> bool:
-    """Whether a token touches the one before it, with no space in between."""
-    spans = _token_spans(text)
-    return token_index > 0 and spans[token_index - 1][1] == spans[token_index][0]
-
-
-def _error(text: str, path: str, line_no: int, token_index: int, message: str) -> TreebankError:
-    return TreebankError(path, message, line_no, _column(text, token_index))
-
-
-def _node_after_word(text: str, path: str, line_no: int, i: int) -> TreebankError:
-    """A '(' after a leaf's word: a literal bracket when glued to the word, else a word beside a node."""
-    word = _TOKEN_RE.findall(text)[i - 1]
-    if _glued(text, i):
-        message = f"literal '(' inside the word {_quote(word + '(')}: write '(' as -LRB- and ')' as -RRB-"
-    else:
-        message = f"expected ')' after the word {_quote(word)}, found '(': a node holds either one word or child nodes"
-    return _error(text, path, line_no, i, message)
-
-
-def _word_after_node(text: str, path: str, line_no: int, i: int) -> TreebankError:
-    word = _TOKEN_RE.findall(text)[i]
-    message = (
-        f"expected '(' or ')' after a child node, found the word {_quote(word)}: "
-        "a node holds either one word or child nodes"
-    )
-    if _glued(text, i):
-        message += " (a ')' inside a word is written -RRB-)"
-    return _error(text, path, line_no, i, message)
 
 
 def _quote(text: str, limit: int = 40) -> str:

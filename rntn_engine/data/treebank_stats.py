@@ -21,7 +21,9 @@ from typing import Iterable
 
 import numpy as np
 
+from rntn_engine.data.batches import phrase_lengths_of
 from rntn_engine.data.tree import UNLABELLED, Tree
+from rntn_engine.data.treebank_bulk import TreeBlock
 
 UNLABELLED_KEY = "unlabelled"
 
@@ -136,6 +138,22 @@ class StatsAccumulator:
         self.node_labels.update(labels)
         self.by_length.update(zip(phrase_bucket.tolist(), labels))
 
+    def add_block(self, block: TreeBlock) -> None:
+        """Count all trees of a block of the bulk reader at once (the same counts as :meth:`add` per tree)."""
+        lengths = np.diff(block.leaf_start)
+        labels = block.label
+        n_words = phrase_lengths_of(block.left, block.right, block.node_start)
+        bucket_of = _bucket_index(_PHRASE_STARTS, n_words)
+        self.n_trees += block.n_trees
+        self.n_nodes += block.n_nodes
+        words = block.words
+        self.word_types.update(words[i] for i in np.unique(block.leaf_word).tolist())
+        self.sentence_lengths.update(_counts(lengths))
+        self.root_labels.update(_counts(labels[block.node_start[1:] - 1]))
+        self.node_labels.update(_counts(labels))
+        pairs = _counts(bucket_of.astype(np.int64) * 2**32 + (labels.astype(np.int64) + 1))
+        self.by_length.update({(key >> 32, (key & 0xFFFFFFFF) - 1): n for key, n in pairs.items()})
+
     def result(self) -> TreebankStats:
         keys = self._label_keys()
         by_length: list[Counter[int]] = [Counter() for _ in PHRASE_LENGTH_BUCKETS]
@@ -170,6 +188,12 @@ def treebank_stats(trees: Iterable[Tree], num_classes: int | None = None) -> Tre
     for tree in trees:
         accumulator.add(tree)
     return accumulator.result()
+
+
+def _counts(values: np.ndarray) -> dict[int, int]:
+    """value -> occurrences, for an integer array."""
+    keys, counts = np.unique(values, return_counts=True)
+    return dict(zip(keys.tolist(), counts.tolist()))
 
 
 def _label_key(label: int) -> str:

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 from collections import Counter
 from dataclasses import dataclass, field
-from typing import Iterable
+from typing import Iterable, Mapping
 
 import numpy as np
 
@@ -68,11 +68,21 @@ class Vocabulary:
 
 def build_vocabulary(trees: Iterable[Tree], min_count: int = 2, lowercase: bool = False) -> Vocabulary:
     """Count the leaf words of ``trees`` and keep those seen at least ``min_count`` times."""
-    if min_count < 1:
-        raise ValueError("min_count must be at least 1")
     counts: Counter[str] = Counter()
     for tree in trees:
-        counts.update(w.lower() for w in tree.words) if lowercase else counts.update(tree.words)
-    counts.pop(UNKNOWN_WORD, None)
-    kept = sorted((w for w, c in counts.items() if c >= min_count), key=lambda w: (-counts[w], w))
+        counts.update(tree.words)
+    return vocabulary_from_counts(counts, min_count, lowercase)
+
+
+def vocabulary_from_counts(counts: Mapping[str, int], min_count: int = 2, lowercase: bool = False) -> Vocabulary:
+    """The vocabulary of words counted ``counts[word]`` times in the training data (see build_vocabulary)."""
+    if min_count < 1:
+        raise ValueError("min_count must be at least 1")
+    if lowercase:
+        folded: Counter[str] = Counter()
+        for w, c in counts.items():
+            folded[w.lower()] += c
+        counts = folded
+    kept = sorted((w for w, c in counts.items() if c >= min_count and w != UNKNOWN_WORD),
+                  key=lambda w: (-counts[w], w))
     return Vocabulary((UNKNOWN_WORD, *kept), lowercase, min_count)

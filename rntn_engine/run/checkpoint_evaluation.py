@@ -14,30 +14,23 @@ from __future__ import annotations
 import glob
 import multiprocessing
 import os
-from concurrent.futures import ProcessPoolExecutor, as_completed
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Callable
 
 import numpy as np
 
-from rntn_engine.data.batches import encode_treebank, phrase_lengths
+from rntn_engine.data.batches import EncodedTreebank, bank_slice, concatenate_banks, phrase_lengths
 from rntn_engine.data.checkpoint_file import CheckpointError, CheckpointUnavailableError
 from rntn_engine.data.errors import InputError
-from rntn_engine.data.tree import Tree
-from rntn_engine.data.treebank_reader import read_trees
+from rntn_engine.data.treebank_encoding import iter_encoded_blocks
 from rntn_engine.data.treebank_stats import PHRASE_LENGTH_BUCKETS, phrase_length_bucket_index
 from rntn_engine.model.objective import TreeModelObjective
 from rntn_engine.run.checkpoints import Checkpoint, load_checkpoint
-from rntn_engine.run.evaluation import TreebankPredictions, predict_treebank
+from rntn_engine.run.evaluation import PREDICT_BATCH_TREES, TreebankPredictions, predict_treebank
 from rntn_engine.run.run_directory import is_run_directory, list_checkpoints
-from rntn_engine.run.scores import (
-    LabelScheme,
-    accuracy,
-    binary_accuracy,
-    confusion_matrix,
-    per_class_scores,
-)
+from rntn_engine.run.scores import LabelScheme, binary_counts, confusion_matrix, per_class_scores
 
 SCORE_NAMES = ("fine_all", "fine_root", "binary_all", "binary_root", "loss")  # loss: lower is better
 
@@ -82,44 +75,114 @@ def expand_checkpoint_specs(specs: list[str]) -> list[Path]:
     return list(unique.values())
 
 
-def score_predictions(pred: TreebankPredictions, scheme: LabelScheme) -> dict[str, float]:
-    """The five scores of SCORE_NAMES, plus node and tree counts."""
-    root = pred.is_root
-    return {
-        "fine_all": accuracy(pred.gold, pred.predicted),
-        "fine_root": accuracy(pred.gold[root], pred.predicted[root]),
-        "binary_all": binary_accuracy(pred.gold, pred.probabilities, scheme),
-        "binary_root": binary_accuracy(pred.gold[root], pred.probabilities[root], scheme),
-        "loss": pred.mean_loss(),
-        "labelled_nodes": pred.labelled_nodes(),
-        "trees": int(root.sum()),
-    }
+class ScoreTally:
+    """The counts behind every score, summed piece by piece over a treebank (memory: one piece).
+
+    ``detail`` also keeps the confusion matrices (all nodes, roots) and the counts by
+    phrase length that :func:`detail_report` prints.
+    """
+
+    def __init__(self, scheme: LabelScheme, detail: bool = False) -> None:
+        C = scheme.num_classes
+        self.scheme = scheme
+        self.detail = detail
+        self.fine = np.zeros((2, 2), dtype=np.int64)  # [all nodes, roots] x [right, labelled]
+        self.binary = np.zeros((2, 2), dtype=np.int64)  # [all nodes, roots] x [right side, counted]
+        self.loss_sum = 0.0
+        self.trees = 0
+        self.confusion = np.zeros((2, C, C), dtype=np.int64)  # [all nodes, roots]
+        self.by_length = np.zeros((len(PHRASE_LENGTH_BUCKETS), 4), dtype=np.int64)  # nodes, fine right, binary
+
+    def add(self, pred: TreebankPredictions, bank: EncodedTreebank) -> None:
+        """Count one piece (its predictions with probabilities, and its bank)."""
+        self.loss_sum = pred.loss_sum  # the piece went on from the running sum (predict_treebank's loss_start)
+        self.trees += bank.n_trees
+        C = self.scheme.num_classes
+        for k, mask in enumerate((slice(None), pred.is_root)):
+            gold, predicted, probabilities = pred.gold[mask], pred.predicted[mask], pred.probabilities[mask]
+            labelled = gold >= 0
+            self.fine[k] += (int(np.count_nonzero(gold[labelled] == predicted[labelled])), int(labelled.sum()))
+            self.binary[k] += binary_counts(gold, probabilities, self.scheme)
+            if self.detail:
+                self.confusion[k] += confusion_matrix(gold, predicted, C)
+        if self.detail:
+            bucket_of = phrase_length_bucket_index(phrase_lengths(bank))
+            labelled = pred.gold >= 0
+            for index in range(len(PHRASE_LENGTH_BUCKETS)):
+                mask = (bucket_of == index) & labelled
+                if mask.any():
+                    self.by_length[index, 0] += int(mask.sum())
+                    self.by_length[index, 1] += int(np.count_nonzero(pred.gold[mask] == pred.predicted[mask]))
+                    self.by_length[index, 2:] += binary_counts(pred.gold[mask], pred.probabilities[mask], self.scheme)
+
+    def scores(self) -> dict[str, float]:
+        """The five scores of SCORE_NAMES, plus node and tree counts."""
+        ratio = _ratio
+        labelled = int(self.fine[0, 1])
+        return {
+            "fine_all": ratio(*self.fine[0]),
+            "fine_root": ratio(*self.fine[1]),
+            "binary_all": ratio(*self.binary[0]),
+            "binary_root": ratio(*self.binary[1]),
+            "loss": self.loss_sum / labelled if labelled else float("nan"),
+            "labelled_nodes": labelled,
+            "trees": self.trees,
+        }
 
 
-def predict_with(checkpoint: Checkpoint, trees: list[Tree]) -> tuple[TreebankPredictions, np.ndarray]:
-    """Forward a checkpoint's model over ``trees``; (predictions with probabilities, phrase lengths)."""
-    bank = encode_treebank(trees, checkpoint.vocabulary)
+def _ratio(right, counted) -> float:
+    return int(right) / int(counted) if counted else float("nan")
+
+
+def score_treebank(checkpoint: Checkpoint, treebank: str, scheme: LabelScheme, binarise: str | None = None,
+                   detail: bool = False, progress: Callable[[int], None] | None = None) -> ScoreTally:
+    """Forward a checkpoint's model over a treebank file read in blocks, and count its scores.
+
+    The file is read block by block and scored in pieces of whole prediction batches
+    (PREDICT_BATCH_TREES trees), so the batches, and with them every bit of the
+    result, are those of one pass over the whole treebank, and memory stays at one
+    piece. ``progress`` gets the number of trees scored, after every piece.
+    """
+    config = checkpoint.config
+    tally = ScoreTally(scheme, detail)
     objective = TreeModelObjective(checkpoint.params)
+    pending: EncodedTreebank | None = None
+
+    def score(piece: EncodedTreebank) -> None:
+        pred = predict_treebank(objective, checkpoint.params, piece, keep_probabilities=True,
+                                loss_start=tally.loss_sum)
+        tally.add(pred, piece)
+        if progress is not None:
+            progress(piece.n_trees)
+
     try:
-        pred = predict_treebank(objective, checkpoint.params, bank, keep_probabilities=True)
+        for block in iter_encoded_blocks(treebank, checkpoint.vocabulary, num_classes=config.num_classes,
+                                         binarise=binarise or config.binarise):
+            pending = block if pending is None else concatenate_banks(pending, block)
+            cut = pending.n_trees - pending.n_trees % PREDICT_BATCH_TREES
+            if cut:
+                score(bank_slice(pending, 0, cut))
+                pending = bank_slice(pending, cut, pending.n_trees) if cut < pending.n_trees else None
+        if pending is not None:
+            score(pending)
     finally:
         objective.close()
-    return pred, phrase_lengths(bank)
+    return tally
 
 
-_TREEBANKS: dict[tuple, list[Tree]] = {}  # per worker process: treebanks already read
+_PROGRESS_QUEUE = None  # per worker process: where to send the number of trees scored
 
 
-def _treebank(path: str, num_classes: int, binarise: str) -> list[Tree]:
-    key = (os.path.abspath(path), num_classes, binarise)
-    if key not in _TREEBANKS:
-        _TREEBANKS[key] = read_trees(path, num_classes=num_classes, binarise=binarise)
-    return _TREEBANKS[key]
+def _set_progress_queue(queue) -> None:
+    global _PROGRESS_QUEUE
+    _PROGRESS_QUEUE = queue
 
 
 def evaluate_checkpoint(path: str, treebanks: list[str], neutral: int | None = -1,
-                        binarise: str | None = None) -> list[EvaluationRow]:
+                        binarise: str | None = None, progress: Callable[[int], None] | None = None) -> list[EvaluationRow]:
     """Score one checkpoint on every treebank (the task a worker runs). Errors become rows."""
+    if progress is None and _PROGRESS_QUEUE is not None:
+        progress = _PROGRESS_QUEUE.put
     try:
         checkpoint = load_checkpoint(path)
     except (CheckpointError, CheckpointUnavailableError, OSError) as exc:
@@ -130,9 +193,8 @@ def evaluate_checkpoint(path: str, treebanks: list[str], neutral: int | None = -
     rows = []
     for tb in treebanks:
         try:
-            trees = _treebank(tb, checkpoint.config.num_classes, binarise or checkpoint.config.binarise)
-            pred, _ = predict_with(checkpoint, trees)
-            rows.append(EvaluationRow(str(path), tb, step, epoch, score_predictions(pred, scheme)))
+            tally = score_treebank(checkpoint, tb, scheme, binarise, progress=progress)
+            rows.append(EvaluationRow(str(path), tb, step, epoch, tally.scores()))
         except InputError as exc:
             rows.append(EvaluationRow(str(path), tb, step, epoch, error=str(exc)))
     return rows
@@ -140,23 +202,32 @@ def evaluate_checkpoint(path: str, treebanks: list[str], neutral: int | None = -
 
 def evaluate_many(paths: list[Path], treebanks: list[str], jobs: int, neutral: int | None = -1,
                   binarise: str | None = None, progress: Callable[[int], None] | None = None) -> list[EvaluationRow]:
-    """Score every checkpoint on every treebank with ``jobs`` worker processes; rows in input order."""
+    """Score every checkpoint on every treebank with ``jobs`` worker processes; rows in input order.
+
+    ``progress`` gets numbers of trees scored, as the workers go.
+    """
     results: dict[int, list[EvaluationRow]] = {}
     jobs = max(1, min(jobs, len(paths)))
     if jobs == 1:
         for i, p in enumerate(paths):
-            results[i] = evaluate_checkpoint(str(p), treebanks, neutral, binarise)
-            if progress:
-                progress(1)
+            results[i] = evaluate_checkpoint(str(p), treebanks, neutral, binarise, progress)
     else:
         # spawn: fresh interpreters, no inherited threads or locks; one BLAS thread each (objective.py)
-        with ProcessPoolExecutor(jobs, mp_context=multiprocessing.get_context("spawn")) as pool:
+        context = multiprocessing.get_context("spawn")
+        queue = context.SimpleQueue() if progress else None
+        with ProcessPoolExecutor(jobs, mp_context=context, initializer=_set_progress_queue,
+                                 initargs=(queue,)) as pool:
             futures = {pool.submit(evaluate_checkpoint, str(p), treebanks, neutral, binarise): i
                        for i, p in enumerate(paths)}
-            for future in as_completed(futures):
-                results[futures[future]] = future.result()
-                if progress:
-                    progress(1)
+            pending = set(futures)
+            while pending:
+                done, pending = wait(pending, timeout=0.25, return_when=FIRST_COMPLETED)
+                while queue is not None and not queue.empty():
+                    progress(queue.get())
+                for future in done:
+                    results[futures[future]] = future.result()
+            while queue is not None and not queue.empty():
+                progress(queue.get())
     return [row for i in range(len(paths)) for row in results[i]]
 
 
@@ -172,24 +243,18 @@ def mark_best(rows: list[EvaluationRow], metric: str) -> None:
             best.best = True
 
 
-def detail_report(checkpoint: Checkpoint, trees: list[Tree], neutral: int | None = -1) -> dict:
+def detail_report(checkpoint: Checkpoint, treebank: str, neutral: int | None = -1, binarise: str | None = None,
+                  progress: Callable[[int], None] | None = None) -> dict:
     """Per-class precision/recall/F1 and confusion matrices (all nodes, roots) and accuracy by phrase length."""
-    pred, lengths = predict_with(checkpoint, trees)
     C = checkpoint.config.num_classes
     scheme = LabelScheme.for_classes(C, neutral)
-    report = {"scores": score_predictions(pred, scheme), "label_scheme": scheme.describe()}
-    for scope, mask in (("all_nodes", np.ones_like(pred.is_root)), ("roots", pred.is_root)):
-        confusion = confusion_matrix(pred.gold[mask], pred.predicted[mask], C)
-        per_class = per_class_scores(confusion)
-        report[scope] = {"confusion": confusion.tolist(),
-                         "per_class": {k: v.tolist() for k, v in per_class.items()}}
-    by_length = []
-    bucket_of = phrase_length_bucket_index(lengths)
-    for index, (name, _, _) in enumerate(PHRASE_LENGTH_BUCKETS):
-        mask = (bucket_of == index) & (pred.gold >= 0)
-        by_length.append({"words": name, "nodes": int(mask.sum()),
-                          "fine": accuracy(pred.gold[mask], pred.predicted[mask]) if mask.any() else float("nan"),
-                          "binary": binary_accuracy(pred.gold[mask], pred.probabilities[mask], scheme)
-                          if mask.any() else float("nan")})
-    report["by_phrase_length"] = by_length
+    tally = score_treebank(checkpoint, treebank, scheme, binarise, detail=True, progress=progress)
+    report = {"scores": tally.scores(), "label_scheme": scheme.describe()}
+    for k, scope in enumerate(("all_nodes", "roots")):
+        per_class = per_class_scores(tally.confusion[k])
+        report[scope] = {"confusion": tally.confusion[k].tolist(),
+                         "per_class": {key: v.tolist() for key, v in per_class.items()}}
+    report["by_phrase_length"] = [
+        {"words": name, "nodes": int(nodes), "fine": _ratio(fine, nodes), "binary": _ratio(right, counted)}
+        for (name, _, _), (nodes, fine, right, counted) in zip(PHRASE_LENGTH_BUCKETS, tally.by_length)]
     return report

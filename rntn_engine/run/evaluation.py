@@ -44,12 +44,17 @@ class TreebankPredictions:
 
 
 def predict_treebank(objective: TreeModelObjective, params: Parameters, bank: EncodedTreebank,
-                     keep_probabilities: bool = False, batch_trees: int = PREDICT_BATCH_TREES) -> TreebankPredictions:
-    """Forward every tree of ``bank``; labels and (optionally) probabilities per node."""
+                     keep_probabilities: bool = False, batch_trees: int = PREDICT_BATCH_TREES,
+                     loss_start: float = 0.0) -> TreebankPredictions:
+    """Forward every tree of ``bank``; labels and (optionally) probabilities per node.
+
+    ``loss_start`` is added to first: a treebank scored in pieces of whole batches
+    (run/checkpoint_evaluation.py) then sums its loss in the same order as in one piece.
+    """
     n = bank.n_nodes
     predicted = np.empty(n, dtype=np.int32)
     probabilities = np.empty((n, params.shape.num_classes), dtype=params.flat.dtype) if keep_probabilities else None
-    loss_sum = 0.0
+    loss_sum = loss_start
     for a in range(0, bank.n_trees, batch_trees):
         z = min(a + batch_trees, bank.n_trees)
         # a fixed split (not the thread count) decides the arithmetic: the same labels on any machine

@@ -3,6 +3,8 @@
 Input, one item per line (blank lines skipped):
   * a bracketed tree (the line starts with "("): its labels, if any, are ignored, so
     class numbers, ``_`` and a parser's categories (``(S (NP ...) (VP ...))``) all work;
+    a tree may go on over the next lines, as parsers' pretty printers write it (the
+    treebank format's rules: it ends where its brackets balance);
   * a plain tokenised sentence (anything else): no parser is bundled, so it gets the
     fallback tree below, and the caller is told (``PredictionSummary.fallback_trees``).
 
@@ -23,7 +25,7 @@ import numpy as np
 from rntn_engine.data.batches import encode_treebank
 from rntn_engine.data.bracket_tokens import SEPARATORS, unescape_token
 from rntn_engine.data.tree import Tree, right_branching_tree
-from rntn_engine.data.treebank_reader import parse_tree
+from rntn_engine.data.treebank_reader import RecordAssembler, parse_record
 from rntn_engine.model.objective import TreeModelObjective, split_into_chunks
 from rntn_engine.run.checkpoints import Checkpoint
 from rntn_engine.run.evaluation import PREDICT_CHUNKS
@@ -51,21 +53,46 @@ class PredictedTree:
     fallback: bool
 
 
-def parse_input_line(text: str, source: str, line: int, input_format: str, binarise: str) -> tuple[Tree, bool] | None:
-    """(tree, used_fallback) for one input line, or None for a blank line."""
-    body = text.strip(SEPARATORS + "\r\n")
-    if not body:
-        return None
-    as_tree = input_format == "trees" or (input_format == "auto" and body.startswith("("))
-    if as_tree:
-        return parse_tree(text.rstrip("\r\n"), path=source, line=line, binarise=binarise, ignore_labels=True), False
-    words = [unescape_token(t) for t in body.split()]
-    return right_branching_tree(words, f"{source}:{line}"), True
+def sentence_tree(body: str, source: str, line: int) -> Tree:
+    """The fallback tree of a tokenised sentence (tokens split on white space, escapes undone)."""
+    return right_branching_tree([unescape_token(t) for t in body.split()], f"{source}:{line}")
+
+
+def iter_input_items(lines: Iterable[str], source: str, input_format: str, binarise: str) -> Iterator[tuple[Tree, int, bool]]:
+    """(tree, first line, used_fallback) for every item of the input, in order.
+
+    A tree may span several lines, by the rules of the treebank format (data/treebank_reader.py):
+    it ends where its brackets balance, and a '(' in the first column starts a new one.
+    Blank lines are skipped; so are comment lines ('#') where a tree may start, except
+    in sentence input, where every non-blank line is a sentence.
+    """
+    records = RecordAssembler()
+
+    def tree_of(done) -> tuple[Tree, int, bool]:
+        record, cut_by = done
+        tree = parse_record(record, path=source, cut_by=cut_by, binarise=binarise, ignore_labels=True)
+        return tree, record[0][0], False
+
+    for line_no, text in enumerate(lines, start=1):
+        text = text.rstrip("\r\n")
+        if not records.open:
+            body = text.strip(SEPARATORS)
+            if not body:
+                continue
+            if not (input_format == "trees" or (input_format == "auto" and body.startswith("("))):
+                yield sentence_tree(body, source, line_no), line_no, True
+                continue
+        done = records.feed(line_no, text)
+        if done is not None:
+            yield tree_of(done)
+    done = records.finish()
+    if done is not None:
+        yield tree_of(done)
 
 
 def predict_lines(checkpoint: Checkpoint, lines: Iterable[str], source: str, input_format: str = "auto",
                   summary: PredictionSummary | None = None, threads: int = 1) -> Iterator[PredictedTree]:
-    """Predict every node of every input line, in input order, ``BLOCK_LINES`` lines per forward pass.
+    """Predict every node of every input item, in input order, ``BLOCK_LINES`` items per forward pass.
 
     ``threads`` worker threads share each block (the labels do not depend on it).
     """
@@ -73,10 +100,8 @@ def predict_lines(checkpoint: Checkpoint, lines: Iterable[str], source: str, inp
     objective = TreeModelObjective(checkpoint.params, threads=threads)
     block: list[tuple[Tree, int, bool]] = []
     try:
-        for line_no, text in enumerate(lines, start=1):
-            parsed = parse_input_line(text, source, line_no, input_format, checkpoint.config.binarise)
-            if parsed is not None:
-                block.append((parsed[0], line_no, parsed[1]))
+        for item in iter_input_items(lines, source, input_format, checkpoint.config.binarise):
+            block.append(item)
             if len(block) >= BLOCK_LINES:
                 yield from _predict_block(objective, checkpoint, block, summary)
                 block = []

@@ -67,14 +67,21 @@ def accuracy(gold: np.ndarray, predicted: np.ndarray) -> float:
 
 def binary_accuracy(gold: np.ndarray, probabilities: np.ndarray, scheme: LabelScheme) -> float:
     """Accuracy of the negative/positive side on labelled, non-neutral nodes (module docstring); nan if none."""
+    correct, counted = binary_counts(gold, probabilities, scheme)
+    return correct / counted if counted else float("nan")
+
+
+def binary_counts(gold: np.ndarray, probabilities: np.ndarray, scheme: LabelScheme) -> tuple[int, int]:
+    """(nodes whose side is right, nodes counted) behind :func:`binary_accuracy`, for sums over blocks."""
     pos, neg = scheme.positive_mask(), scheme.negative_mask()
     keep = (gold >= 0) & (gold != (scheme.neutral if scheme.neutral is not None else -2))
-    if not keep.any():
-        return float("nan")
+    counted = int(np.count_nonzero(keep))
+    if not counted:
+        return 0, 0
     gold_positive = pos[gold[keep]]
     p = probabilities[keep]
     predicted_positive = p[:, pos].sum(axis=1) > p[:, neg].sum(axis=1)
-    return float(np.mean(gold_positive == predicted_positive))
+    return int(np.count_nonzero(gold_positive == predicted_positive)), counted
 
 
 def majority_class(gold: np.ndarray) -> int:

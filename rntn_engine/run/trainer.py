@@ -32,10 +32,11 @@ import numpy as np
 from tqdm import tqdm
 
 from rntn_engine.data.atomic_files import fsync_directory, temp_name_for, write_atomically
-from rntn_engine.data.batches import EncodedTreebank, encode_treebank
+from rntn_engine.data.batches import EncodedTreebank
+from rntn_engine.data.encoded_cache import cache_key, load_cached_bank, store_cached_bank
 from rntn_engine.data.errors import InputError
-from rntn_engine.data.treebank_reader import read_trees
-from rntn_engine.data.vocabulary import Vocabulary, build_vocabulary
+from rntn_engine.data.treebank_encoding import apply_vocabulary, read_encoded_treebank, read_treebank_words
+from rntn_engine.data.vocabulary import Vocabulary, vocabulary_from_counts
 from rntn_engine.model.adagrad import AdaGrad
 from rntn_engine.model.objective import L2Strengths, TreeModelObjective, split_into_chunks
 from rntn_engine.model.parameters import (
@@ -85,6 +86,10 @@ from rntn_engine.run.stop_signals import EXIT_STOPPED_RESUMABLE, StopRequest, pa
 
 EXIT_FINISHED = 0
 HEARTBEAT_SECONDS = 2.0  # how often progress.json is refreshed (also after every checkpoint)
+TREEBANK_CACHE_DIR = "encoded-treebanks"  # in the run directory: the encoded treebanks (data/encoded_cache.py)
+# Smaller treebanks are read again on resume: at the bulk reader's tens of MB/s that takes under half a
+# second, less than writing and verifying a cache entry is worth (scripts/bench_treebank.py measures both).
+TREEBANK_CACHE_MIN_BYTES = 16 * 2**20
 
 
 def file_sha256(path: str | Path) -> str:
@@ -136,21 +141,50 @@ def resolve_data_paths(config: TrainConfig, keys: tuple[str, ...] = ("train_file
             setattr(config, key, str(Path(getattr(config, key)).resolve()))
 
 
-def load_training_data(config: TrainConfig, vocabulary: Vocabulary | None = None) -> TrainingData:
-    """Read the treebanks (errors point at file:line:column), build or reuse the vocabulary, encode.
+def load_training_data(config: TrainConfig, vocabulary: Vocabulary | None = None,
+                       cache_dir: Path | None = None) -> TrainingData:
+    """Read the treebanks in bulk (errors point at file:line:column), build or reuse the vocabulary, encode.
 
-    A new vocabulary is built from the training trees, then extended with the vector
-    file's first words when ``extend_vocabulary`` asks for it (run/pretrained_start.py).
+    A new vocabulary is built from the training file's word counts, then extended with
+    the vector file's first words when ``extend_vocabulary`` asks for it
+    (run/pretrained_start.py). No Tree objects are made (data/treebank_encoding.py).
+    With ``cache_dir``, treebanks of at least TREEBANK_CACHE_MIN_BYTES are kept there
+    encoded (data/encoded_cache.py), so a resume with the same data and vocabulary loads
+    them instead of reading the text.
     """
-    train_trees = read_trees(config.train_file, num_classes=config.num_classes, binarise=config.binarise)
+    options = {"num_classes": config.num_classes, "binarise": config.binarise}
+    hashes = data_file_hashes(config)
     if vocabulary is None:
-        vocabulary = extend_with_vector_words(config, build_vocabulary(train_trees, config.min_count,
-                                                                       config.lowercase))
+        train, words = read_treebank_words(config.train_file, **options)
+        vocabulary = extend_with_vector_words(config, vocabulary_from_counts(words.as_dict(), config.min_count,
+                                                                             config.lowercase))
+        train = _encoded("train", config.train_file, hashes["train_file"], vocabulary, options, cache_dir,
+                         apply_vocabulary(train, words, vocabulary))
+    else:
+        train = _encoded("train", config.train_file, hashes["train_file"], vocabulary, options, cache_dir)
     dev = None
     if config.dev_file:
-        dev_trees = read_trees(config.dev_file, num_classes=config.num_classes, binarise=config.binarise)
-        dev = encode_treebank(dev_trees, vocabulary)
-    return TrainingData(vocabulary, encode_treebank(train_trees, vocabulary), dev, data_file_hashes(config))
+        dev = _encoded("dev", config.dev_file, hashes["dev_file"], vocabulary, options, cache_dir)
+    return TrainingData(vocabulary, train, dev, hashes)
+
+
+def _encoded(name: str, path: str, sha256: str, vocabulary: Vocabulary, options: dict, cache_dir: Path | None,
+             bank: EncodedTreebank | None = None) -> EncodedTreebank:
+    """``bank``, or the treebank from the cache, or read; kept in the cache when it is large enough."""
+    use_cache = cache_dir is not None and os.path.getsize(path) >= TREEBANK_CACHE_MIN_BYTES
+    key = cache_key(sha256, options["binarise"], options["num_classes"], vocabulary) if use_cache else ""
+    if bank is None and use_cache:
+        cached = load_cached_bank(cache_dir, name, key)
+        if cached is not None:
+            return cached
+    if bank is None:
+        bank = read_encoded_treebank(path, vocabulary, **options)
+    if use_cache:
+        try:
+            store_cached_bank(cache_dir, name, key, bank)
+        except OSError:
+            pass  # the cache is an optimisation: a full disk must not stop the run
+    return bank
 
 
 # --- starting and resuming -----------------------------------------------------------------------------
@@ -319,7 +353,9 @@ class Trainer:
         """Train from ``checkpoint`` (None: from scratch) to the end or a stop; returns the exit code."""
         config = self.config
         # --- restore: data, parameters, optimiser, position -- all at this one point --------------------------
-        data = load_training_data(config, checkpoint.vocabulary if checkpoint else None)
+        # rank 0 alone keeps the encoded-treebank cache in the run directory; other ranks read the text
+        cache_dir = self.run_dir / TREEBANK_CACHE_DIR if self.group.is_root else None
+        data = load_training_data(config, checkpoint.vocabulary if checkpoint else None, cache_dir=cache_dir)
         self.group.same_on_all(data.hashes, "content of the data files (SHA-256)")
         if self.fault:
             self.fault("data_loaded")
