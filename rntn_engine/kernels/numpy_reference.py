@@ -16,6 +16,9 @@ the forward pass and in reverse post-order for the backward pass.
               e_x = W^T delta + sum_k delta_k (V[k] + V[k]^T) x;  left gets e_x[:d], right e_x[d:]
     leaf:     dL[w] += e
 
+The tensor term of one level (kernels/tensor_term.py) has its own twin,
+reference_tensor_term and reference_tensor_input_gradient, node by node and k by k.
+
 The MV-RNN's twin (reference_forward_mv, reference_backward_mv: MV-RNN,
 2012; numba kernels in compose_matrix_vector.py) follows at the end, with its equations.
 """
@@ -80,6 +83,30 @@ def reference_backward(L, W, b, V, Ws, bs, word, left, right, label, scale, P, Y
         E[left[i]] += e_x[:d]
         E[right[i]] += e_x[d:]
     return grads
+
+
+# --- the tensor term of one level (RNTN, 2013), twin of tensor_term.py ---
+#
+#    per node x (D,):  q_k = (V[k] + V[k]^T) x,   h_k = x^T V[k] x           k = 1..d
+#    backward:         e_x += sum_k delta_k q_k
+
+
+def reference_tensor_term(V, X):
+    """(Q (n, d*D) with Q[m, k*D:(k+1)*D] = q_k of node m, H (n, d) with H[m, k] = h_k) for X (n, D)."""
+    d = V.shape[0]
+    D = 2 * d
+    Q = np.zeros((X.shape[0], d * D), dtype=X.dtype)
+    H = np.zeros((X.shape[0], d), dtype=X.dtype)
+    for m, x in enumerate(X):
+        for k in range(d):
+            Q[m, k * D : (k + 1) * D] = (V[k] + V[k].T) @ x
+            H[m, k] = x @ V[k] @ x
+    return Q, H
+
+
+def reference_tensor_input_gradient(V, X, Delta):
+    """(n, D): e_x = sum_k delta_k (V[k] + V[k]^T) x per node, from X (n, D) and Delta (n, d)."""
+    return np.stack([sum(delta[k] * (V[k] + V[k].T) @ x for k in range(V.shape[0])) for x, delta in zip(X, Delta)])
 
 
 # --- matrix-vector model (MV-RNN, 2012), twin of compose_matrix_vector.py ---

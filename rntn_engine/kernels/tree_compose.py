@@ -14,7 +14,9 @@ Forward (RNN; RNTN, 2013), for every node in post-order:
 Only the symmetric part of V[k] reaches h_k, so with S[k] = V[k] + V[k]^T and
 q_k = S[k] x (a D-vector per k), h_k = x . q_k / 2. A level of n nodes computes
 every q at once, Q = X Vsym, where Vsym (D, d*D) holds Vsym[i, k*D + j] = S[k][i, j].
-The same Q gives the tensor part of the input gradient, d h_k / d x = q_k.
+The same Q gives the tensor part of the input gradient, d h_k / d x = q_k. A level's tensor
+term, forward and input gradient, is in kernels/tensor_term.py (BLAS for wide levels, a
+register-blocked kernel of our own selectable for narrow ones).
 
 Backward, in reverse (top level first), with e the error reaching p (from its own
 classifier plus its parent):
@@ -41,6 +43,14 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from rntn_engine.kernels.tensor_term import (
+    NODE_BLOCK,
+    TILE,
+    tensor_term_forward_blas,
+    tensor_term_forward_own,
+    tensor_term_input_gradient,
+)
+
 
 @njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
 def symmetric_tensor_layout(Vsym, V):
@@ -53,7 +63,8 @@ def symmetric_tensor_layout(Vsym, V):
 
 
 @njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
-def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_start, use_tensor):
+def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_start, use_tensor,
+                    own_rows=0):
     """Node vectors of a whole batch, level by level.
 
     P (N, d) out: node vectors.   X (M, D) out: children [p_l ; p_r] per internal node, in `order`.
@@ -62,9 +73,12 @@ def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_s
     in blocks of R rows reusing Q, so memory no longer grows with the batch.
     L (|V|, d); W (d, D); b (d,); Vsym (D, d*D); word/left/right (N,) int32;
     order (M,) int32; level_start (H+1,) int32; use_tensor: RNTN if True, RNN if False.
+    own_rows: levels of at most this many nodes take the tensor term's own kernel, wider ones
+    BLAS (kernels/tensor_term.py); 0: BLAS for every level.
     """
     N, d = P.shape
-    D = 2 * d
+    hv = np.empty(d, dtype=P.dtype)  # workspaces of the tensor term
+    acc = np.empty((NODE_BLOCK, TILE), dtype=P.dtype)
     for i in range(N):  # leaves: p = L[w]
         if left[i] < 0:
             w = word[i]
@@ -85,14 +99,10 @@ def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_s
             for s in range(a, z, max(block, 1)):
                 e = min(z, s + block)
                 q0 = s if keep else 0  # row of Q holding node s
-                np.dot(X[s:e], Vsym, Q[q0 : q0 + e - s])  # q_k = S[k] x: (n, D) x (D, d*D)
-                for m in range(s, e):  # h_k = x . q_k / 2
-                    qm = q0 + m - s
-                    for k in range(d):
-                        h = 0.0
-                        for j in range(D):
-                            h += X[m, j] * Q[qm, k * D + j]
-                        Z[m, k] += 0.5 * h
+                if e - s <= own_rows:  # q_k = S[k] x into Q, then h_k = x . q_k / 2 into Z
+                    tensor_term_forward_own(Z, Q, X, Vsym, hv, acc, s, e, q0)
+                else:
+                    tensor_term_forward_blas(Z, Q, X, Vsym, hv, s, e, q0)
         for m in range(a, z):  # p = tanh(W x + b + h)
             i = order[m]
             for k in range(d):
@@ -120,12 +130,8 @@ def backward_compose(dW, db, dVsym, E, Delta, EX, P, X, Q, W, left, right, order
             for k in range(d):
                 Delta[m, k] = E[i, k] * (1.0 - P[i, k] * P[i, k])
         np.dot(Delta[a:z], W, EX[a:z])  # W^T delta for the level: (n, d) x (d, D)
-        if use_tensor:
-            for m in range(a, z):  # + sum_k delta_k q_k
-                for k in range(d):
-                    dk = Delta[m, k]
-                    for j in range(D):
-                        EX[m, j] += dk * Q[m, k * D + j]
+        if use_tensor:  # + sum_k delta_k q_k
+            tensor_term_input_gradient(EX, Delta, Q, a, z)
         for m in range(a, z):  # e_l += e_x[:d], e_r += e_x[d:]
             i = order[m]
             l = left[i]

@@ -10,9 +10,16 @@ model/objective.py), so a step costs what its trees touch and an untouched row k
 its value and its G bit for bit. G itself stays one dense array per parameter: it is
 part of a run's state and goes into every checkpoint. ``frozen`` names parameter
 arrays that are not updated (for example word vectors kept fixed); their G stays zero.
+
+Threads: a dense group of at least PARALLEL_MIN elements is cut into DENSE_PARTS fixed
+element ranges, updated on ``threads`` worker threads. Every element's update depends on
+that element only, and the squared sums of the parts (for the penalty) are added in part
+order, so the result is bitwise the same for any number of threads.
 """
 
 from __future__ import annotations
+
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
@@ -20,17 +27,31 @@ from rntn_engine.kernels.adagrad_step import adagrad_l2_rows_step, adagrad_l2_st
 from rntn_engine.model.objective import L2Strengths
 from rntn_engine.model.parameters import L2_GROUP, Gradient, Parameters
 
+# Dense groups this large (the tensor V from d = 20 on) are updated in DENSE_PARTS pieces on the
+# worker threads: at d = 50 the serial update of V was about 5% of a 1-thread step (1.3 ms of a
+# 25 ms step, float64, measured with the per-kernel timers of DEVELOPERS.md, 2026-12-02).
+PARALLEL_MIN = 1 << 15
+DENSE_PARTS = 8  # fixed, not the thread count: the penalty's sum order must not depend on threads
+
 
 class AdaGrad:
     """Squared-gradient sums for every parameter, and the update rule."""
 
-    def __init__(self, params: Parameters, lr: float, eps: float = 1e-6, frozen: tuple[str, ...] = ()) -> None:
+    def __init__(self, params: Parameters, lr: float, eps: float = 1e-6, frozen: tuple[str, ...] = (),
+                 threads: int = 1) -> None:
         if lr <= 0:
             raise ValueError("learning rate must be positive")
         self.lr = float(lr)
         self.eps = float(eps)
         self.frozen = tuple(frozen)
         self.sums = params.zeros_like()  # G, same layout as the parameters
+        self._pool = ThreadPoolExecutor(threads) if threads > 1 else None
+
+    def close(self) -> None:
+        """Stop the worker threads (the optimiser still works afterwards, on the calling thread)."""
+        if self._pool is not None:
+            self._pool.shutdown()
+            self._pool = None
 
     def step(self, params: Parameters, grads: Gradient) -> None:
         """One update of ``params`` in place from ``grads`` (whose L2 term, if any, is already in)."""
@@ -67,11 +88,29 @@ class AdaGrad:
                                                rows.rows, rows.values, anchor, theta.dtype.type(lam), self.lr,
                                                self.eps, update, flush_below)
             else:
-                theta = theta.reshape(-1)
-                squares = adagrad_l2_step(theta, self.sums[name].reshape(-1), grads[name].reshape(-1),
-                                          theta.dtype.type(lam), self.lr, self.eps, update, flush_below)
+                squares = self._dense_step(theta.reshape(-1), self.sums[name].reshape(-1), grads[name].reshape(-1),
+                                           theta.dtype.type(lam), update, flush_below)
             penalty += 0.5 * lam * squares
         return penalty
+
+    def _dense_step(self, theta: np.ndarray, G: np.ndarray, g: np.ndarray, lam, update: bool,
+                    flush_below: float) -> float:
+        """adagrad_l2_step over one dense group; in DENSE_PARTS pieces when it is large (module docstring)."""
+        n = theta.shape[0]
+        if n < PARALLEL_MIN:
+            return adagrad_l2_step(theta, G, g, lam, self.lr, self.eps, update, flush_below)
+        cuts = [n * p // DENSE_PARTS for p in range(DENSE_PARTS + 1)]
+
+        def part(p: int) -> float:
+            a, z = cuts[p], cuts[p + 1]
+            return adagrad_l2_step(theta[a:z], G[a:z], g[a:z], lam, self.lr, self.eps, update, flush_below)
+
+        parts = list(self._pool.map(part, range(DENSE_PARTS))) if self._pool is not None else \
+            [part(p) for p in range(DENSE_PARTS)]
+        squares = 0.0
+        for value in parts:  # in part order
+            squares += value
+        return squares
 
     def reset(self) -> None:
         """Forget the squared-gradient history (the optional periodic reset)."""

@@ -59,6 +59,7 @@ from rntn_engine.kernels.tree_compose import (
     forward_compose,
     symmetric_tensor_layout,
 )
+from rntn_engine.kernels.tensor_term import OWN_KERNEL_ROWS
 from rntn_engine.kernels.word_rows import add_word_rows, scatter_word_rows, touched_rows
 from rntn_engine.model.parameters import L2_GROUP, WORD_ROW_NAMES, Gradient, Parameters, WordRows
 
@@ -182,6 +183,7 @@ class TreeModelObjective:
         self._blas_limit = threadpool_limits(limits=1, user_api="blas")
         d = self.shape.dim
         self._Vsym = np.zeros((2 * d, d * 2 * d) if self.use_tensor else (0, 0), dtype=self._dtype)
+        self.own_kernel_rows = OWN_KERNEL_ROWS  # levels this narrow take the tensor term's own kernel
 
     def close(self) -> None:
         if self._blas_limit is not None:
@@ -217,7 +219,8 @@ class TreeModelObjective:
             rows = M if keep_for_backward else min(M, FORWARD_Q_ROWS)
             Q = ws.get("Q", rows if self.use_tensor else 0, d * D if self.use_tensor else 0)
             forward_compose(P, X, Z, Q, params.L, params.W, params.b, self._Vsym,
-                            batch.word, batch.left, batch.right, batch.order, batch.level_start, self.use_tensor)
+                            batch.word, batch.left, batch.right, batch.order, batch.level_start, self.use_tensor,
+                            self.own_kernel_rows)
         Y = ws.get("Y", N, C)  # (N, C) class probabilities
         S = ws.get("S", N, C)  # (N, C) class scores
         loss = forward_classify(Y, S, P, params.Ws, params.bs, batch.label, scale)

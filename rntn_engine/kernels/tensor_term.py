@@ -1,0 +1,153 @@
+"""The tensor term of one level of the RNTN (2013): forward, and the input-gradient part of backward.
+
+Legend: n nodes in the level (rows s..e-1 of the batch's level order), d vector size,
+D = 2d. Vsym (D, d*D) is the symmetric layout of the tensor (tree_compose.py):
+Vsym[i, k*D + j] = S[k][i, j] with S[k] = V[k] + V[k]^T.
+
+Forward, per node m of the level with children x = X[m] (D,):
+
+    q_k  = S[k] x                 Q[m, k*D + j] = sum_i x_i Vsym[i, k*D + j]      (kept for backward)
+    h_k  = x^T V[k] x = x . q_k / 2                                               Z[m, k] += h_k
+
+Backward (input gradient), with delta = Delta[m] (d,) the error at the pre-activation:
+
+    d h_k / d x = q_k,  so  e_x += sum_k delta_k q_k       EX[m, j] += sum_k Delta[m, k] Q[m, k*D + j]
+
+(the tensor's own gradient, dV[k] += delta_k x x^T, stays one batch-wide matrix product in
+tree_compose.py). A level's Q is computed one of two ways:
+
+- BLAS (``tensor_term_forward_blas``): Q = X Vsym, one matrix product for the level.
+- own (``tensor_term_forward_own``): register-blocked over nodes. Nodes go in blocks of
+  NODE_BLOCK and the columns of Q in tiles of TILE; for each row i of Vsym the tile's
+  TILE numbers are loaded once and added, times x_i of each node of the block (held in
+  registers), into the block's NODE_BLOCK x TILE sums, which stay in L1 (``acc``). Q[m, c]
+  is summed over i = 0..D-1 in that order. No packing of the tensor, no call per level.
+
+tree_compose.forward_compose picks the own kernel for levels of at most ``own_rows``
+nodes (its argument; model/objective.py passes OWN_KERNEL_ROWS), BLAS above.
+
+Either way h_k = x . q_k / 2 is then taken for all k at once as one matrix-vector product
+per node (Q[m] seen as a (d, D) matrix times x), instead of d dot products summed one
+term after another (whose chain of dependent additions cost 0.4-2.6 us per node against
+0.2-1.5 with the product, measured). Both ways are deterministic and do not depend on the
+number of threads (every product runs single-threaded inside one chunk). The NumPy twins
+are ``reference_tensor_term`` and ``reference_tensor_input_gradient`` (kernels/numpy_reference.py).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+NODE_BLOCK = 4  # nodes per register block of the own kernel
+TILE = 256  # columns of Q per tile of the own kernel: NODE_BLOCK x TILE sums stay in L1 (8 KiB in float64)
+
+# Levels of at most this many nodes take the own kernel. Measured with
+# `python scripts/bench_tensor_term.py` (2026-12-02, this project's 2-core machine, OpenBLAS
+# 0.3.31 on AVX-512; GFLOP/s of Q alone, best of 9, own / BLAS):
+#   n =          1       4       8      16
+#   d=25 f32  26/40  43/125  42/136  44/139
+#   d=25 f64  11/22  15/60   15/68   15/72
+#   d=50 f32  19/70  10/68   29/114  28/145
+#   d=50 f64   2/26   6/10   15/12   14/33
+# BLAS wins at every width on this machine (numba leaves LLVM's SLP vectorizer off, so the
+# sums cannot be kept in vector registers across i; see DEVELOPERS.md), hence 0: the own
+# kernel stays selectable (`scripts/bench.py --own-kernel-rows N`) for machines where it wins.
+OWN_KERNEL_ROWS = 0
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+def _tensor_h(Z, Q, X, hv, s, e, q0):
+    """Z[m, k] += x_m . q_k / 2 for m in s..e-1 (Q row of node m: q0 + m - s); hv (d,) workspace."""
+    d = Z.shape[1]
+    D = 2 * d
+    for m in range(s, e):
+        np.dot(Q[q0 + m - s].reshape((d, D)), X[m], hv)  # (d, D) x (D,): h_k * 2 for every k
+        for k in range(d):
+            Z[m, k] += 0.5 * hv[k]
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+def tensor_term_forward_blas(Z, Q, X, Vsym, hv, s, e, q0):
+    """Rows s..e-1: Q[q0 : q0+e-s] = X[s:e] Vsym (one BLAS product), then Z[m] += h (module docstring).
+
+    Z (M, d) in/out; Q (R, d*D) out, R >= q0 + e - s; X (M, D); Vsym (D, d*D); hv (d,) workspace.
+    """
+    np.dot(X[s:e], Vsym, Q[q0 : q0 + e - s])  # (n, D) x (D, d*D)
+    _tensor_h(Z, Q, X, hv, s, e, q0)
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+def tensor_term_forward_own(Z, Q, X, Vsym, hv, acc, s, e, q0):
+    """The same as tensor_term_forward_blas, register-blocked (module docstring).
+
+    Z (M, d) in/out; Q (R, d*D) out, R >= q0 + e - s; X (M, D); Vsym (D, d*D);
+    hv (d,), acc (NODE_BLOCK, TILE) workspaces.
+    """
+    D = X.shape[1]
+    cols = Vsym.shape[1]
+    for b in range(s, e, NODE_BLOCK):
+        n = min(NODE_BLOCK, e - b)
+        r = q0 + b - s  # Q row of node b
+        for c in range(0, cols, TILE):
+            w = min(TILE, cols - c)
+            a0 = acc[0]
+            a1 = acc[1]
+            a2 = acc[2]
+            a3 = acc[3]
+            if n == NODE_BLOCK:
+                v = Vsym[0, c : c + w]  # i = 0 starts the sums
+                x0 = X[b, 0]
+                x1 = X[b + 1, 0]
+                x2 = X[b + 2, 0]
+                x3 = X[b + 3, 0]
+                for j in range(w):
+                    a0[j] = x0 * v[j]
+                    a1[j] = x1 * v[j]
+                    a2[j] = x2 * v[j]
+                    a3[j] = x3 * v[j]
+                for i in range(1, D):
+                    v = Vsym[i, c : c + w]  # (w,) loaded once for the 4 nodes
+                    x0 = X[b, i]
+                    x1 = X[b + 1, i]
+                    x2 = X[b + 2, i]
+                    x3 = X[b + 3, i]
+                    for j in range(w):
+                        vj = v[j]
+                        a0[j] += x0 * vj
+                        a1[j] += x1 * vj
+                        a2[j] += x2 * vj
+                        a3[j] += x3 * vj
+            else:  # the level's last 1..3 nodes, one at a time
+                for t in range(n):
+                    a = acc[t]
+                    v = Vsym[0, c : c + w]
+                    xt = X[b + t, 0]
+                    for j in range(w):
+                        a[j] = xt * v[j]
+                    for i in range(1, D):
+                        v = Vsym[i, c : c + w]
+                        xt = X[b + t, i]
+                        for j in range(w):
+                            a[j] += xt * v[j]
+            for t in range(n):
+                q = Q[r + t, c : c + w]
+                a = acc[t]
+                for j in range(w):
+                    q[j] = a[j]
+    _tensor_h(Z, Q, X, hv, s, e, q0)
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+def tensor_term_input_gradient(EX, Delta, Q, s, e):
+    """Rows s..e-1: EX[m, j] += sum_k Delta[m, k] Q[m, k*D + j]   (e_x += sum_k delta_k q_k).
+
+    EX (M, D) in/out; Delta (M, d); Q (M, d*D) from the forward pass (one row per node).
+    """
+    d = Delta.shape[1]
+    D = 2 * d
+    for m in range(s, e):
+        for k in range(d):
+            dk = Delta[m, k]
+            for j in range(D):
+                EX[m, j] += dk * Q[m, k * D + j]
