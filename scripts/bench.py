@@ -2,7 +2,7 @@
 """Benchmark the training and evaluation kernels against the machine's own matrix-multiply rate.
 
 Generates, in a temporary directory, a synthetic treebank shaped like a real
-phrase-labelled sentiment treebank (8,544 trees, about 19 words on average, 2..60,
+phrase-labelled sentiment treebank (8,000 trees, about 19 words on average, 2..60,
 Zipf-distributed vocabulary of 20,000 types, random binary shapes, every node
 labelled), then for each vector size, dtype and thread count measures:
 
@@ -15,12 +15,16 @@ labelled), then for each vector size, dtype and thread count measures:
   * NumPy's dense matrix-multiply GFLOP/s (2 n^3 / s, n = --matmul-size, same dtype and
     thread count) and the ratio effective / matmul;
   * the process's CPU seconds per wall second beside each timing;
-  * the speed-up from 1 thread to all threads.
+  * the speed-up from 1 thread to all threads;
+  * with --baseline-tree DIR: the same settings measured, in the same run and interleaved
+    setting by setting, on another checkout of the project (an earlier commit: the code
+    before a change), and the ratios of this code's training epoch and evaluation time to it.
 
 Then, once: time to the first training step in a fresh process (warm kernel cache),
 checkpoint save and load time, and peak resident memory per node of corpus.
 
-Usage:  python scripts/bench.py [--json] [--dims 25 50] [--dtypes float32 float64] [--trees 8544]
+Usage:  python scripts/bench.py [--json] [--dims 25 50] [--dtypes float32 float64] [--trees 8000]
+        python scripts/bench.py --steps 80 --baseline-tree /path/to/older/checkout
 The machine is shared: quote medians, and compare ratios measured in one run.
 """
 
@@ -102,7 +106,9 @@ def bench_setting(bank, vocab_size: int, dim: int, dtype: str, threads: int, arg
     params = init_parameters(shape, np.random.default_rng(0))
     grads = Gradient(params.shape)
     objective = TreeModelObjective(params, threads=threads)
-    optimiser = AdaGrad(params, 0.01)
+    if args.own_kernel_rows is not None:
+        objective.own_kernel_rows = args.own_kernel_rows
+    optimiser = AdaGrad(params, 0.01, threads=threads)
     order = np.random.default_rng(1).permutation(bank.n_trees)
     n_steps = min(args.steps, -(-bank.n_trees // args.batch_size))
     batches = [split_into_chunks(bank, order[i * args.batch_size:(i + 1) * args.batch_size], args.chunks)
@@ -124,6 +130,7 @@ def bench_setting(bank, vocab_size: int, dim: int, dtype: str, threads: int, arg
     forward_pass()
     forward_s, forward_cpu = timed(forward_pass, args.repeats)
     objective.close()
+    optimiser.close()
     internal_all = int(np.sum(bank.left >= 0))
     effective = NOMINAL_FLOPS_PER_NODE * dim**3 * internal / train_s / 1e9
     mm = matmul_rate(dtype, threads, args.matmul_size, args.repeats)
@@ -136,6 +143,24 @@ def bench_setting(bank, vocab_size: int, dim: int, dtype: str, threads: int, arg
         "forward_over_train": (internal_all / forward_s) / (internal / train_s),
         "effective_gflops": effective, "matmul_gflops": mm, "ratio_to_matmul": effective / mm,
     }
+
+
+def add_baseline(setting: dict, args) -> None:
+    """Measure ``setting`` on the checkout ``args.baseline_tree`` (its own scripts/bench.py, in a fresh
+    process importing that tree) and add its figures and this code's ratios to them to ``setting``."""
+    tree = args.baseline_tree.resolve()
+    command = [sys.executable, str(tree / "scripts" / "bench.py"), "--json", "--skip-process-probes",
+               "--trees", str(args.trees), "--vocab", str(args.vocab), "--dims", str(setting["dim"]),
+               "--dtypes", setting["dtype"], "--threads", str(setting["threads"]), "--batch-size",
+               str(args.batch_size), "--chunks", str(args.chunks), "--steps", str(args.steps), "--repeats",
+               str(args.repeats), "--matmul-size", str(args.matmul_size)]
+    env = dict(os.environ, PYTHONPATH=str(tree))
+    out = subprocess.run(command, capture_output=True, text=True, check=True, env=env, cwd=tree).stdout
+    old = json.loads(out)["settings"][0]
+    setting["baseline"] = {k: old[k] for k in ("train_seconds_per_epoch", "forward_trees_per_s", "ratio_to_matmul",
+                                                "matmul_gflops", "train_cpu_per_wall")}
+    setting["epoch_new_over_old"] = setting["train_seconds_per_epoch"] / old["train_seconds_per_epoch"]  # same corpus
+    setting["eval_new_over_old"] = old["forward_trees_per_s"] / setting["forward_trees_per_s"]
 
 
 FIRST_STEP_PROBE = """
@@ -209,7 +234,7 @@ def memory_per_node(treebank: Path, tmp: Path) -> float:
 
 def main(argv: list[str] | None = None) -> dict:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    parser.add_argument("--trees", type=int, default=8544)
+    parser.add_argument("--trees", type=int, default=8000)
     parser.add_argument("--vocab", type=int, default=20000)
     parser.add_argument("--dims", type=int, nargs="+", default=[25, 50])
     parser.add_argument("--dtypes", nargs="+", default=["float32", "float64"])
@@ -219,6 +244,12 @@ def main(argv: list[str] | None = None) -> dict:
     parser.add_argument("--steps", type=int, default=10**9, help="timed minibatches per pass (default: a full epoch)")
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--matmul-size", type=int, default=1024)
+    parser.add_argument("--own-kernel-rows", type=int, default=None,
+                        help="levels of at most this many nodes take the tensor term's own kernel, wider ones BLAS "
+                             "(default: the library's OWN_KERNEL_ROWS; 0: BLAS for every level)")
+    parser.add_argument("--baseline-tree", type=Path, default=None,
+                        help="another checkout of the project (e.g. `git worktree add DIR COMMIT`): measure each "
+                             "setting there too, right after this code's, and print the ratios")
     parser.add_argument("--json", action="store_true", help="print JSON instead of a table")
     parser.add_argument("--skip-process-probes", action="store_true", help="skip fresh-process and memory probes")
     args = parser.parse_args(argv)
@@ -246,7 +277,10 @@ def main(argv: list[str] | None = None) -> dict:
         for dim in args.dims:
             for dtype in args.dtypes:
                 for threads in args.threads:
-                    result["settings"].append(bench_setting(bank, len(vocab), dim, dtype, threads, args))
+                    setting = bench_setting(bank, len(vocab), dim, dtype, threads, args)
+                    if args.baseline_tree is not None:
+                        add_baseline(setting, args)
+                    result["settings"].append(setting)
         by_key = {(s["dim"], s["dtype"], s["threads"]): s for s in result["settings"]}
         top = max(args.threads)
         for s in result["settings"]:
@@ -279,6 +313,9 @@ def print_table(result: dict) -> None:
           f"{c['mean_words']:.1f} words/tree ({c['min_words']}..{c['max_words']}); read in {c['read_seconds']:.2f} s")
     header = ["d", "dtype", "thr", "train int.nodes/s", "trees/s", "s/epoch", "cpu/wall", "eval trees/s",
               "eval/train", "eff GF/s", "matmul GF/s", "ratio", "speed-up"]
+    baseline = any("baseline" in s for s in result["settings"])
+    if baseline:
+        header += ["old s/epoch", "old ratio", "epoch new/old", "eval time new/old"]
     rows = []
     for s in result["settings"]:
         rows.append([s["dim"], s["dtype"], s["threads"], f"{s['train_internal_nodes_per_s']:,.0f}",
@@ -287,6 +324,9 @@ def print_table(result: dict) -> None:
                      f"{s['forward_over_train']:.1f}", f"{s['effective_gflops']:.1f}", f"{s['matmul_gflops']:.1f}",
                      f"{s['ratio_to_matmul']:.2f}",
                      f"{s['speedup_vs_1_thread']:.2f}" if s["speedup_vs_1_thread"] else "-"])
+        if baseline:
+            rows[-1] += [f"{s['baseline']['train_seconds_per_epoch']:.2f}", f"{s['baseline']['ratio_to_matmul']:.2f}",
+                         f"{s['epoch_new_over_old']:.2f}", f"{s['eval_new_over_old']:.2f}"]
     widths = [max(len(str(r[i])) for r in rows + [header]) for i in range(len(header))]
     for r in [header] + rows:
         print("  ".join(str(v).rjust(w) for v, w in zip(r, widths)))

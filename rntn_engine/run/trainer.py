@@ -370,13 +370,13 @@ class Trainer:
             params = init_parameters(shape, np.random.default_rng(config.seed))
             if config.vectors_file:
                 params.L[:] = initial_word_vectors(config, data.vocabulary, bank, params.flat.dtype, self.echo)
-            optimiser = AdaGrad(params, config.lr, config.adagrad_eps, frozen)
+            optimiser = AdaGrad(params, config.lr, config.adagrad_eps, frozen, threads=config.threads)
             state, history = RunState(), []
             if config.l2_words_toward == "start":
                 self.anchors = {"L": params.L.copy()}
         else:
             params = checkpoint.params
-            optimiser = AdaGrad(params, config.lr, config.adagrad_eps, frozen)
+            optimiser = AdaGrad(params, config.lr, config.adagrad_eps, frozen, threads=config.threads)
             optimiser.sums.flat[:] = checkpoint.adagrad_sums.flat
             state, history = RunState.from_record(checkpoint.state), list(checkpoint.metrics)
             self.anchors = dict(checkpoint.anchors)
@@ -488,6 +488,7 @@ class Trainer:
                 self.save(params, optimiser, state, history, data)
         finally:
             objective.close()
+            optimiser.close()
         # --- finish: the final model ---------------------------------------------------------------------
         if state.finish_reason == "early stopping":
             self.echo(f"early stopping: {config.best_metric} did not improve for {config.patience} evaluations")
