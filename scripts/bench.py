@@ -107,7 +107,7 @@ def bench_setting(bank, vocab_size: int, dim: int, dtype: str, threads: int, arg
     grads = Gradient(params.shape)
     objective = TreeModelObjective(params, threads=threads)
     if args.own_kernel_rows is not None:
-        objective.own_kernel_rows = args.own_kernel_rows
+        objective.model.own_kernel_rows = args.own_kernel_rows
     optimiser = AdaGrad(params, 0.01, threads=threads)
     order = np.random.default_rng(1).permutation(bank.n_trees)
     n_steps = min(args.steps, -(-bank.n_trees // args.batch_size))

@@ -89,7 +89,7 @@ def test_level_input_gradient_equals_twin(dtype):
 
 def own_kernel_objective(params, l2=None):
     objective = TreeModelObjective(params, l2 or L2Strengths(0, 0, 0, 0))
-    objective.own_kernel_rows = 1 << 30  # every level through the own kernel
+    objective.model.own_kernel_rows = 1 << 30  # every level through the own kernel
     return objective
 
 
