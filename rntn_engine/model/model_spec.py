@@ -23,13 +23,23 @@ from __future__ import annotations
 
 from abc import ABC, abstractmethod
 from dataclasses import dataclass, field, fields
-from typing import TYPE_CHECKING, ClassVar
+from typing import TYPE_CHECKING, Callable, ClassVar
 
 import numpy as np
 
 if TYPE_CHECKING:  # the specifications stay importable by parameters.py, which defines these
     from rntn_engine.data.batches import FlatBatch
     from rntn_engine.model.parameters import ModelShape, Parameters
+
+# run_parts(work, parts): work(part) for every part, in any order or at once (each part writes its own elements)
+PartRunner = Callable[[Callable[[object], None], list], None]
+
+
+def run_in_order(work: Callable[[object], None], parts: list) -> None:
+    """The PartRunner without threads."""
+    for part in parts:
+        work(part)
+
 
 MIN_ROWS = 16  # an activation buffer never starts smaller: tiny batches do not reallocate every step
 
@@ -101,8 +111,12 @@ class ModelSpec(ABC):
     def new_activations(self) -> Activations:
         return self.activations(np.dtype(self.shape.dtype))
 
-    def prepare(self, params: Parameters) -> None:
-        """Per-step work on the parameters before any chunk runs (shared by the chunks, read-only)."""
+    def prepare(self, params: Parameters, run_parts: PartRunner = run_in_order) -> None:
+        """Per-step work on the parameters before any chunk runs (shared by the chunks, read-only).
+
+        ``run_parts(work, parts)`` calls ``work(part)`` for every part, on the objective's worker
+        threads when it has them: for work cut into fixed parts that touch disjoint elements.
+        """
 
     @abstractmethod
     def forward(self, params: Parameters, batch: FlatBatch, acts: Activations, keep_for_backward: bool) -> None:
@@ -129,6 +143,12 @@ class ModelSpec(ABC):
 
     def add_layout_gradient(self, grads: dict[str, np.ndarray], layout_grad: np.ndarray) -> None:
         """Add one chunk's extra gradient to the minibatch's arrays in ``grads`` (called in chunk order)."""
+
+    def add_layout_gradients(self, grads: dict[str, np.ndarray], layout_grads: list[np.ndarray],
+                             run_parts: PartRunner = run_in_order) -> None:
+        """Add every chunk's extra gradient, in chunk order for every element (``run_parts`` as in prepare)."""
+        for layout_grad in layout_grads:
+            self.add_layout_gradient(grads, layout_grad)
 
 
 # --- draws shared by the models (model/parameters.py lists the distributions) -------------------------

@@ -169,6 +169,14 @@ class TreeModelObjective:
             self._pool.shutdown()
             self._pool = None
 
+    def _run_parts(self, work, parts: list) -> None:
+        """work(part) for every part, on the worker threads when there are any (model_spec.PartRunner)."""
+        if self._pool is not None and len(parts) > 1:
+            list(self._pool.map(work, parts))
+        else:
+            for part in parts:
+                work(part)
+
     # --- one chunk: forward (and backward) with the serial kernels -------------------------------
 
     def _slot(self, k: int) -> Activations:
@@ -207,7 +215,7 @@ class TreeModelObjective:
         """
         n_trees = sum(c.n_trees for c in chunks)
         scale = 1.0 / n_trees
-        self.model.prepare(params)
+        self.model.prepare(params, self._run_parts)
         while len(self._chunk_grads) < len(chunks):
             self._chunk_grads.append(ChunkGradient(params, self._chunk_names, self.model.layout_gradient_shape()))
         ranks, rank = (group.size, group.rank) if group is not None else (1, 0)
@@ -252,9 +260,10 @@ class TreeModelObjective:
             loss += own.loss
             for name, g in own.views.items():
                 grads[name] += g
-            self.model.add_layout_gradient(grads, own.layout)
             for name, word_rows in own.rows.items():
                 add_word_rows(grads.rows[name].values, np.searchsorted(rows, word_rows.rows), word_rows.values)
+        self.model.add_layout_gradients(grads, [self._chunk_grads[k].layout for k in range(len(chunks))],
+                                        self._run_parts)
         return loss + self.add_l2(params, grads, rows) if include_l2 else loss
 
     def add_l2(self, params: Parameters, grads: Gradient | None, rows: np.ndarray) -> float:
@@ -292,7 +301,7 @@ class TreeModelObjective:
 
         With ``copy=False`` P and Y are views of workspaces, valid until the next call.
         """
-        self.model.prepare(params)
+        self.model.prepare(params, self._run_parts)
         acts = self._slot(0)
         loss = self._forward_chunk(params, batch, acts, 1.0, keep_for_backward=False)
         return (loss, acts.P.copy(), acts.Y.copy()) if copy else (loss, acts.P, acts.Y)
@@ -303,7 +312,7 @@ class TreeModelObjective:
         Returns (cross-entropy sum, Y view) per chunk; the views stay valid until the next call.
         The chunks, not the threads, decide the arithmetic, so results do not depend on ``threads``.
         """
-        self.model.prepare(params)
+        self.model.prepare(params, self._run_parts)
 
         def run(k: int):
             acts = self._slot(k)
@@ -316,7 +325,7 @@ class TreeModelObjective:
     def loss(self, params: Parameters, chunks: list[FlatBatch]) -> float:
         """J of the minibatch without the gradient (the forward-only twin of loss_and_gradient)."""
         n_trees = sum(c.n_trees for c in chunks)
-        self.model.prepare(params)
+        self.model.prepare(params, self._run_parts)
         total = 0.0
         for k, batch in enumerate(chunks):
             total += self._forward_chunk(params, batch, self._slot(k), 1.0 / n_trees)

@@ -6,7 +6,9 @@ Parameters L, W, b, V (and the shared classifier Ws, bs), drawn in the order L, 
 V ~ U(-1/D, 1/D) (small: the model starts close to the RNN). Every step first builds the
 symmetric layout of V (kernels/tree_compose.py, symmetric_tensor_layout), which the chunks
 share read-only; each chunk's tensor gradient is accumulated in that layout and folded into dV
-in chunk order (add_layout_gradient).
+in chunk order (add_layout_gradients). Both run in TENSOR_PARTS fixed ranges of k on the
+objective's worker threads: every element of V, Vsym and dV belongs to one range and sees the
+same operations in the same order whatever the number of threads.
 """
 
 from __future__ import annotations
@@ -16,11 +18,17 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from rntn_engine.kernels.tree_compose import add_symmetric_layout_gradient, symmetric_tensor_layout
-from rntn_engine.model.model_spec import draw_classifier, draw_composition, draw_word_vectors
+from rntn_engine.model.model_spec import PartRunner, draw_classifier, draw_composition, draw_word_vectors, run_in_order
 from rntn_engine.model.rnn_model import RecursiveNetwork
 
 if TYPE_CHECKING:
     from rntn_engine.model.parameters import Parameters
+
+
+# Ranges of k the layout work is cut into. At d = 50 float64 building the layout and folding two chunks'
+# layout gradients into dV took 1.1 ms of a 24.7 ms one-thread step, serial before (per-kernel timers,
+# DEVELOPERS.md "Findings from the second performance round").
+TENSOR_PARTS = 4
 
 
 class TensorNetwork(RecursiveNetwork):
@@ -37,11 +45,30 @@ class TensorNetwork(RecursiveNetwork):
         params.V[:] = rng.uniform(-1.0 / D, 1.0 / D, size=params.V.shape).astype(params.flat.dtype)
         draw_classifier(params, rng)
 
-    def prepare(self, params: Parameters) -> None:
-        symmetric_tensor_layout(self.Vsym, params.V)
+    def _k_ranges(self) -> list[tuple[int, int]]:
+        d = self.shape.dim
+        cuts = [d * p // TENSOR_PARTS for p in range(TENSOR_PARTS + 1)]
+        return [(a, z) for a, z in zip(cuts[:-1], cuts[1:]) if z > a]
+
+    def prepare(self, params: Parameters, run_parts: PartRunner = run_in_order) -> None:
+        D = 2 * self.shape.dim
+
+        def work(k: tuple[int, int]) -> None:  # Vsym[:, k*D:(k+1)*D] from V[k] for k in the range
+            symmetric_tensor_layout(self.Vsym[:, k[0] * D : k[1] * D], params.V[k[0] : k[1]])
+
+        run_parts(work, self._k_ranges())
 
     def layout_gradient_shape(self) -> tuple[int, ...]:
         return self.Vsym.shape
 
     def add_layout_gradient(self, grads, layout_grad: np.ndarray) -> None:
         add_symmetric_layout_gradient(grads["V"], layout_grad)
+
+    def add_layout_gradients(self, grads, layout_grads: list[np.ndarray], run_parts: PartRunner = run_in_order) -> None:
+        D = 2 * self.shape.dim
+
+        def work(k: tuple[int, int]) -> None:  # dV[k] for k in the range, chunk after chunk
+            for layout_grad in layout_grads:
+                add_symmetric_layout_gradient(grads["V"][k[0] : k[1]], layout_grad[:, k[0] * D : k[1] * D])
+
+        run_parts(work, self._k_ranges())
