@@ -4,7 +4,7 @@ Legend: B trees of the minibatch, in the minibatch's order; K chunks asked for.
 
 A chunk's work is modelled as
 
-    work(chunk) = sum over its trees of internal nodes  +  LEVEL_WORK * levels(chunk)
+    work(chunk) = NODE_WORK * (internal nodes of its trees)  +  LEVEL_WORK * levels(chunk)
 
 where levels(chunk) is the height of its tallest tree: the kernels compose a chunk level by
 level, and each level pays a fixed cost (one pass over the tensor in the level's product,
@@ -20,12 +20,13 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-# Fixed cost of one level in internal-node equivalents. Measured by timing the training step
-# (forward + backward) of 400 chunks of random trees and fitting seconds = a * internal nodes +
-# b * levels by least squares (the script in DEVELOPERS.md "Findings from the second performance
-# round"): b / a = 4.1 at d = 25 float32, 2.6 at d = 25 float64, 1.7 at d = 50 float32, 1.2 at
-# d = 50 float64 (2026-12-02, this project's 2-core machine); rounded to the middle.
-LEVEL_WORK = 2
+# Work of an internal node and of a level, in integers (half a node's work per level). Measured with
+# `python scripts/bench_tensor_term.py levels` (training step of one chunk, 1 thread, least squares over
+# 300 chunks of 2..19 random trees; 2026-12-02, this project's 2-core machine, shared): a level cost
+# 0.5, 0.5, 4.2 and 0.6 internal nodes at d = 25 float32, 25 float64, 50 float32, 50 float64 (per node
+# 3.8, 6.0, 21.4, 48.0 us; per level 2.0, 2.9, 89.8, 27.6 us; the d = 50 float32 fit was the noisiest).
+NODE_WORK = 2
+LEVEL_WORK = 1
 
 
 @njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
@@ -59,7 +60,7 @@ def tree_shapes(left, right, start, tree_ids):
 
 
 @njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
-def _chunks_needed(internal, height, limit, level_work):
+def _chunks_needed(internal, height, limit, node_work, level_work):
     """Chunks the greedy cut needs when no chunk may exceed ``limit`` work."""
     count = 1
     nodes = 0
@@ -67,7 +68,7 @@ def _chunks_needed(internal, height, limit, level_work):
     for t in range(internal.shape[0]):
         n2 = nodes + internal[t]
         t2 = max(tallest, height[t])
-        if nodes + tallest > 0 and n2 + level_work * t2 > limit:  # tree t opens a new chunk
+        if nodes + tallest > 0 and node_work * n2 + level_work * t2 > limit:  # tree t opens a new chunk
             count += 1
             n2 = internal[t]
             t2 = height[t]
@@ -77,23 +78,24 @@ def _chunks_needed(internal, height, limit, level_work):
 
 
 @njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
-def balanced_cuts(internal, height, chunks, level_work):
+def balanced_cuts(internal, height, chunks, node_work, level_work):
     """(k+1,) int64 bounds, k <= chunks: chunk c holds trees bounds[c]..bounds[c+1]-1 (module docstring).
 
-    internal, height (B,) int64 per tree, B >= 1; level_work the fixed work of one level.
+    internal, height (B,) int64 per tree, B >= 1; node_work, level_work: the work of an internal
+    node and the fixed work of a level.
     """
     B = internal.shape[0]
     lo = 0  # no chunk can do with less than its largest tree
     hi = 0
     tallest = 0
     for t in range(B):
-        lo = max(lo, internal[t] + level_work * height[t])
-        hi += internal[t]
+        lo = max(lo, node_work * internal[t] + level_work * height[t])
+        hi += node_work * internal[t]
         tallest = max(tallest, height[t])
     hi += level_work * tallest  # one chunk holding every tree
     while lo < hi:  # smallest largest-work the greedy cut achieves with at most `chunks` chunks
         mid = (lo + hi) // 2
-        if _chunks_needed(internal, height, mid, level_work) <= chunks:
+        if _chunks_needed(internal, height, mid, node_work, level_work) <= chunks:
             hi = mid
         else:
             lo = mid + 1
@@ -105,7 +107,7 @@ def balanced_cuts(internal, height, chunks, level_work):
     for t in range(B):
         n2 = nodes + internal[t]
         t2 = max(top, height[t])
-        if nodes + top > 0 and n2 + level_work * t2 > lo:
+        if nodes + top > 0 and node_work * n2 + level_work * t2 > lo:
             k += 1
             bounds[k] = t
             n2 = internal[t]

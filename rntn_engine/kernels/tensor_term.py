@@ -43,16 +43,18 @@ NODE_BLOCK = 4  # nodes per register block of the own kernel
 TILE = 256  # columns of Q per tile of the own kernel: NODE_BLOCK x TILE sums stay in L1 (8 KiB in float64)
 
 # Levels of at most this many nodes take the own kernel. Measured with
-# `python scripts/bench_tensor_term.py` (2026-12-02, this project's 2-core machine, OpenBLAS
-# 0.3.31 on AVX-512; GFLOP/s of Q alone, best of 9, own / BLAS):
-#   n =          1       4       8      16
-#   d=25 f32  26/40  43/125  42/136  44/139
-#   d=25 f64  11/22  15/60   15/68   15/72
-#   d=50 f32  19/70  10/68   29/114  28/145
-#   d=50 f64   2/26   6/10   15/12   14/33
-# BLAS wins at every width on this machine (numba leaves LLVM's SLP vectorizer off, so the
-# sums cannot be kept in vector registers across i; see DEVELOPERS.md), hence 0: the own
-# kernel stays selectable (`scripts/bench.py --own-kernel-rows N`) for machines where it wins.
+# `python scripts/bench_tensor_term.py widths` (2026-12-02, this project's 2-core machine, shared;
+# OpenBLAS 0.3.31 SkylakeX kernels, AVX-512), GFLOP/s of Q and h for one level, best of 9, own / BLAS:
+#   n =          1      2      3      4      8     16     32
+#   d=25 f32  19/37  21/60  20/64  26/84  25/90  25/111 27/71
+#   d=25 f64  12/16  13/35  13/36  19/51  19/58  19/60  19/51
+#   d=50 f32  18/30  20/50  20/14  28/17  28/31  27/50  26/74
+#   d=50 f64   7/7   10/12  11/13  18/19  18/32  18/43  17/58
+# BLAS is as fast or faster at every width but for d = 50 float32 at n = 3..4, the run's noisiest
+# cells (its own n = 1..2 and 8 are faster with BLAS): numba leaves LLVM's SLP vectorizer off and has
+# no vector types, so the own kernel's sums go through L1 on every i instead of staying in vector
+# registers (DEVELOPERS.md). Hence 0: BLAS for every level; the own kernel stays tested and
+# selectable (`scripts/bench.py --own-kernel-rows N`) for a machine where it wins.
 OWN_KERNEL_ROWS = 0
 
 

@@ -52,6 +52,7 @@ from threadpoolctl import threadpool_limits
 
 from rntn_engine.data.batches import EncodedTreebank, FlatBatch, make_batch
 from rntn_engine.kernels.adagrad_step import word_rows_l2
+from rntn_engine.kernels.chunk_balance import LEVEL_WORK, NODE_WORK, balanced_cuts, tree_shapes
 from rntn_engine.kernels.node_classifier import backward_classify, forward_classify
 from rntn_engine.kernels.word_rows import add_word_rows, scatter_word_rows, touched_rows
 from rntn_engine.model.model_registry import model_spec
@@ -78,14 +79,13 @@ L2_BLOCK = 1 << 22  # elements per pass of a dense group's L2 term: its float64 
 
 
 def split_into_chunks(bank: EncodedTreebank, tree_ids: np.ndarray, chunks: int) -> list[FlatBatch]:
-    """Cut a minibatch into at most ``chunks`` contiguous groups of trees with similar node counts."""
+    """Cut a minibatch into at most ``chunks`` contiguous groups of trees of similar work: internal nodes
+    plus a fixed cost per level (kernels/chunk_balance.py)."""
     tree_ids = np.asarray(tree_ids, dtype=np.int64)
-    chunks = max(1, min(chunks, len(tree_ids)))
-    sizes = (bank.start[tree_ids + 1] - bank.start[tree_ids]).astype(np.float64)
-    cum = np.cumsum(sizes)
-    # cut after the tree where the running node count first reaches k/chunks of the total
-    cuts = np.searchsorted(cum, cum[-1] * np.arange(1, chunks) / chunks, side="left") + 1
-    bounds = np.unique(np.concatenate([[0], np.clip(cuts, 1, len(tree_ids)), [len(tree_ids)]]))
+    if len(tree_ids) == 0:
+        return []
+    internal, height = tree_shapes(bank.left, bank.right, bank.start, tree_ids)
+    bounds = balanced_cuts(internal, height, max(1, chunks), NODE_WORK, LEVEL_WORK)
     return [make_batch(bank, tree_ids[a:z]) for a, z in zip(bounds[:-1], bounds[1:]) if z > a]
 
 
