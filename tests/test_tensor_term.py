@@ -2,7 +2,8 @@
 NumPy twin (kernels/numpy_reference.py), and the own kernel inside the whole objective against the
 node-by-node twin and an independent autodiff library (the `autograd` package, HIPS).
 
-Sizes are chosen to reach every branch: levels of 1..9 nodes (whole blocks of 4 and the 1..3
+The forward-only pair products (h without Q) are checked the same way, and inside the objective by
+tests/test_kernels_match_reference.py (its forward-only pass). Sizes are chosen to reach every branch: levels of 1..9 nodes (whole blocks of 4 and the 1..3
 left over), d = 12 (d*D = 288 columns: one whole tile of 256 and a short one), an offset Q row
 (the forward-only pass reuses a block of Q rows).
 """
@@ -23,8 +24,10 @@ from rntn_engine.kernels.numpy_reference import (
 from rntn_engine.kernels.tensor_term import (
     NODE_BLOCK,
     TILE,
+    pair_layout,
     tensor_term_forward_blas,
     tensor_term_forward_own,
+    tensor_term_forward_pairs,
     tensor_term_input_gradient,
 )
 from rntn_engine.kernels.tree_compose import symmetric_tensor_layout
@@ -70,6 +73,23 @@ def test_level_forward_equals_twin(kernel, n, d, dtype):
     assert relative_error(Z[s:e] - 1.0, H_ref) < TOLERANCE[dtype]
     assert np.all(Z[:s] == 1.0) and np.all(Z[e:] == 1.0)  # rows outside the level untouched
     assert np.all(np.isnan(Q[:q0])) and np.all(np.isnan(Q[q0 + n :]))
+
+
+@pytest.mark.parametrize("dtype", ["float64", "float32"])
+@pytest.mark.parametrize("d", [3, 12])
+@pytest.mark.parametrize("n", [1, 4, 9])
+def test_forward_only_pair_products_equal_twin(n, d, dtype):
+    V, _, X = level_case(d, n, dtype, seed=3 * n + d)
+    D = 2 * d
+    T = np.full((d, D * (D + 1) // 2), np.nan, dtype=dtype)
+    pair_layout(T, V)
+    assert not np.any(np.isnan(T))  # every pair written
+    Z = np.ones((X.shape[0], d), dtype=dtype)
+    work = np.full((D * (D + 1) // 2 + D + d) * n, np.nan, dtype=dtype)
+    tensor_term_forward_pairs(Z, work, X, T, 2, 2 + n)
+    _, H_ref = reference_tensor_term(V.astype(np.float64), X[2 : 2 + n].astype(np.float64))
+    assert relative_error(Z[2 : 2 + n] - 1.0, H_ref) < TOLERANCE[dtype]
+    assert np.all(Z[:2] == 1.0) and np.all(Z[2 + n :] == 1.0)
 
 
 @pytest.mark.parametrize("dtype", ["float64", "float32"])

@@ -24,7 +24,15 @@ tree_compose.py). A level's Q is computed one of two ways:
   is summed over i = 0..D-1 in that order. No packing of the tensor, no call per level.
 
 tree_compose.forward_compose picks the own kernel for levels of at most ``own_rows``
-nodes (its argument; model/objective.py passes OWN_KERNEL_ROWS), BLAS above.
+nodes (its argument; the vector models pass OWN_KERNEL_ROWS), BLAS above.
+
+Forward only (evaluation, prediction: no Q to keep) h needs no Q at all. With the pairs
+i <= j of the upper triangle, p = 1..D(D+1)/2,
+
+    h_k = sum_{i<=j} T[k, p(i,j)] u_p,   u_p = x_i x_j,   T[k, p(i,j)] = V[k,i,j] + V[k,j,i] (i < j), V[k,i,i] (i = j)
+
+one product H^T = T U^T per block of nodes, (d, D(D+1)/2) x (D(D+1)/2, n): half the
+multiply-adds of X Vsym (``tensor_term_forward_pairs``; T built by ``pair_layout``).
 
 Either way h_k = x . q_k / 2 is then taken for all k at once as one matrix-vector product
 per node (Q[m] seen as a (d, D) matrix times x), instead of d dot products summed one
@@ -138,6 +146,52 @@ def tensor_term_forward_own(Z, Q, X, Vsym, hv, acc, s, e, q0):
                 for j in range(w):
                     q[j] = a[j]
     _tensor_h(Z, Q, X, hv, s, e, q0)
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+def pair_layout(T, V):
+    """T (d, D(D+1)/2) out: T[k, p(i,j)] = V[k,i,j] + V[k,j,i] for i < j, V[k,i,i] for i = j;
+    pairs row by row over the upper triangle (p(0,0), p(0,1), .., p(0,D-1), p(1,1), ..). V (d, D, D)."""
+    d, D, _ = V.shape
+    for k in range(d):
+        p = 0
+        for i in range(D):
+            T[k, p] = V[k, i, i]
+            p += 1
+            for j in range(i + 1, D):
+                T[k, p] = V[k, i, j] + V[k, j, i]
+                p += 1
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+def tensor_term_forward_pairs(Z, work, X, T, s, e):
+    """Forward only, rows s..e-1: Z[m, k] += h_k from the pair products (module docstring).
+
+    Z (M, d) in/out; work (>= (D(D+1)/2 + D + d) * n,) flat workspace; X (M, D); T (d, D(D+1)/2).
+    """
+    d = Z.shape[1]
+    D = X.shape[1]
+    pairs = T.shape[1]
+    n = e - s
+    XT = work[: D * n].reshape((D, n))  # (D, n) the block's x, one row per coordinate
+    UT = work[D * n : (D + pairs) * n].reshape((pairs, n))  # (pairs, n) u_p of every node
+    HT = work[(D + pairs) * n : (D + pairs + d) * n].reshape((d, n))  # (d, n) h of every node
+    for m in range(n):
+        for i in range(D):
+            XT[i, m] = X[s + m, i]
+    p = 0
+    for i in range(D):
+        xi = XT[i]
+        for j in range(i, D):  # u_p = x_i x_j for every node at once
+            xj = XT[j]
+            u = UT[p]
+            for m in range(n):
+                u[m] = xi[m] * xj[m]
+            p += 1
+    np.dot(T, UT, HT)  # (d, pairs) x (pairs, n)
+    for m in range(n):
+        for k in range(d):
+            Z[s + m, k] += HT[k, m]
 
 
 @njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")

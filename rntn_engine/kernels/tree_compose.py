@@ -48,6 +48,7 @@ from rntn_engine.kernels.tensor_term import (
     TILE,
     tensor_term_forward_blas,
     tensor_term_forward_own,
+    tensor_term_forward_pairs,
     tensor_term_input_gradient,
 )
 
@@ -64,13 +65,14 @@ def symmetric_tensor_layout(Vsym, V):
 
 @njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
 def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_start, use_tensor,
-                    own_rows=0):
+                    own_rows, T):
     """Node vectors of a whole batch, level by level.
 
     P (N, d) out: node vectors.   X (M, D) out: children [p_l ; p_r] per internal node, in `order`.
     Z (M, d) workspace: pre-activations.   Q (M, d*D) out: X Vsym (used only when use_tensor), kept
-    for the backward pass; or (R, d*D) with R < M for a forward-only pass: then each level is done
-    in blocks of R rows reusing Q, so memory no longer grows with the batch.
+    for the backward pass. Forward only, T (d, D(D+1)/2) is the tensor's pair layout and Q a
+    workspace of (R, d*D + 4d): each level is done in blocks of R rows through the pair
+    products (tensor_term.py), so memory does not grow with the batch; otherwise T is (0, 0).
     L (|V|, d); W (d, D); b (d,); Vsym (D, d*D); word/left/right (N,) int32;
     order (M,) int32; level_start (H+1,) int32; use_tensor: RNTN if True, RNN if False.
     own_rows: levels of at most this many nodes take the tensor term's own kernel, wider ones
@@ -93,16 +95,15 @@ def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_s
                 X[m, k] = P[left[i], k]
                 X[m, d + k] = P[right[i], k]
         np.dot(X[a:z], W.T, Z[a:z])  # W x for the level: (n, D) x (D, d)
-        if use_tensor:
-            keep = Q.shape[0] >= order.shape[0]
-            block = (z - a) if keep else Q.shape[0]
-            for s in range(a, z, max(block, 1)):
-                e = min(z, s + block)
-                q0 = s if keep else 0  # row of Q holding node s
-                if e - s <= own_rows:  # q_k = S[k] x into Q, then h_k = x . q_k / 2 into Z
-                    tensor_term_forward_own(Z, Q, X, Vsym, hv, acc, s, e, q0)
-                else:
-                    tensor_term_forward_blas(Z, Q, X, Vsym, hv, s, e, q0)
+        if use_tensor and T.shape[0] > 0:  # forward only: h from the pair products, in blocks of R rows
+            work = Q.reshape(-1)
+            for s in range(a, z, Q.shape[0]):
+                tensor_term_forward_pairs(Z, work, X, T, s, min(z, s + Q.shape[0]))
+        elif use_tensor:  # q_k = S[k] x into Q (kept for backward), then h_k = x . q_k / 2 into Z
+            if z - a <= own_rows:
+                tensor_term_forward_own(Z, Q, X, Vsym, hv, acc, a, z, a)
+            else:
+                tensor_term_forward_blas(Z, Q, X, Vsym, hv, a, z, a)
         for m in range(a, z):  # p = tanh(W x + b + h)
             i = order[m]
             for k in range(d):

@@ -111,8 +111,9 @@ class ModelSpec(ABC):
     def new_activations(self) -> Activations:
         return self.activations(np.dtype(self.shape.dtype))
 
-    def prepare(self, params: Parameters, run_parts: PartRunner = run_in_order) -> None:
-        """Per-step work on the parameters before any chunk runs (shared by the chunks, read-only).
+    def prepare(self, params: Parameters, run_parts: PartRunner = run_in_order, forward_only: bool = False) -> None:
+        """Per-step work on the parameters before any chunk runs (shared by the chunks, read-only);
+        ``forward_only``: for forward passes that keep nothing for a backward pass.
 
         ``run_parts(work, parts)`` calls ``work(part)`` for every part, on the objective's worker
         threads when it has them: for work cut into fixed parts that touch disjoint elements.

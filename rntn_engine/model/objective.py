@@ -301,7 +301,7 @@ class TreeModelObjective:
 
         With ``copy=False`` P and Y are views of workspaces, valid until the next call.
         """
-        self.model.prepare(params, self._run_parts)
+        self.model.prepare(params, self._run_parts, forward_only=True)
         acts = self._slot(0)
         loss = self._forward_chunk(params, batch, acts, 1.0, keep_for_backward=False)
         return (loss, acts.P.copy(), acts.Y.copy()) if copy else (loss, acts.P, acts.Y)
@@ -312,7 +312,7 @@ class TreeModelObjective:
         Returns (cross-entropy sum, Y view) per chunk; the views stay valid until the next call.
         The chunks, not the threads, decide the arithmetic, so results do not depend on ``threads``.
         """
-        self.model.prepare(params, self._run_parts)
+        self.model.prepare(params, self._run_parts, forward_only=True)
 
         def run(k: int):
             acts = self._slot(k)

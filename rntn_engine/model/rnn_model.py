@@ -56,11 +56,16 @@ class RecursiveNetwork(ModelSpec):
         d = shape.dim
         # the RNTN's symmetric tensor layout (D, d*D), rebuilt by prepare() every step; empty here
         self.Vsym = np.zeros((2 * d, d * 2 * d) if self.with_tensor else (0, 0), dtype=np.dtype(shape.dtype))
+        # its pair layout (d, D(D+1)/2) for forward-only passes (kernels/tensor_term.py), rebuilt by prepare()
+        self.pairs = np.zeros((d, d * (2 * d + 1)) if self.with_tensor else (0, 0), dtype=np.dtype(shape.dtype))
+        self._no_pairs = np.zeros((0, 0), dtype=np.dtype(shape.dtype))
 
     def activation_numbers(self, n_nodes: int, n_internal: int, backward: bool = True) -> int:
         d = self.shape.dim
         D = 2 * d
-        q = (n_internal if backward else min(n_internal, FORWARD_Q_ROWS)) * d * D if self.with_tensor else 0
+        # Q: X Vsym of every internal node; forward only, a block of rows of the pair products' workspace
+        q = (n_internal * d * D if backward else min(n_internal, FORWARD_Q_ROWS) * (d * D + 4 * d)) \
+            if self.with_tensor else 0
         numbers = n_nodes * d + n_internal * (D + d) + q
         return numbers + (n_nodes * d + n_internal * (d + D) if backward else 0)
 
@@ -72,12 +77,15 @@ class RecursiveNetwork(ModelSpec):
     def forward(self, params: Parameters, batch: FlatBatch, acts: VectorActivations, keep_for_backward: bool) -> None:
         d = self.shape.dim
         N, M, D = batch.n_nodes, batch.n_internal, 2 * d
-        # Q: every internal node's row when backward follows; forward only: a block reused level by level
+        # Q: every internal node's row when backward follows; forward only: a block of rows reused level by
+        # level as the pair products' workspace (kernels/tensor_term.py, tensor_term_forward_pairs)
         q_rows = (M if keep_for_backward else min(M, FORWARD_Q_ROWS)) if self.with_tensor else 0
-        acts.resize({"P": (N, d), "X": (M, D), "Z": (M, d), "Q": (q_rows, d * D if self.with_tensor else 0)})
+        q_cols = (d * D if keep_for_backward else d * D + 4 * d) if self.with_tensor else 0
+        acts.resize({"P": (N, d), "X": (M, D), "Z": (M, d), "Q": (q_rows, q_cols)})
+        pairs = self._no_pairs if keep_for_backward or not self.with_tensor else self.pairs
         forward_compose(acts.P, acts.X, acts.Z, acts.Q, params.L, params.W, params.b, self.Vsym,
                         batch.word, batch.left, batch.right, batch.order, batch.level_start, self.with_tensor,
-                        self.own_kernel_rows)
+                        self.own_kernel_rows, pairs)
 
     def backward(self, params: Parameters, grads: dict[str, np.ndarray], layout_grad: np.ndarray,
                  batch: FlatBatch, acts: VectorActivations) -> None:

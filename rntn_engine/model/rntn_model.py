@@ -4,7 +4,8 @@
 
 Parameters L, W, b, V (and the shared classifier Ws, bs), drawn in the order L, W, V, Ws, with
 V ~ U(-1/D, 1/D) (small: the model starts close to the RNN). Every step first builds the
-symmetric layout of V (kernels/tree_compose.py, symmetric_tensor_layout), which the chunks
+symmetric layout of V (kernels/tree_compose.py, symmetric_tensor_layout), or for a
+forward-only pass its pair layout (kernels/tensor_term.py, pair_layout), which the chunks
 share read-only; each chunk's tensor gradient is accumulated in that layout and folded into dV
 in chunk order (add_layout_gradients). Both run in TENSOR_PARTS fixed ranges of k on the
 objective's worker threads: every element of V, Vsym and dV belongs to one range and sees the
@@ -17,6 +18,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from rntn_engine.kernels.tensor_term import pair_layout
 from rntn_engine.kernels.tree_compose import add_symmetric_layout_gradient, symmetric_tensor_layout
 from rntn_engine.model.model_spec import PartRunner, draw_classifier, draw_composition, draw_word_vectors, run_in_order
 from rntn_engine.model.rnn_model import RecursiveNetwork
@@ -50,11 +52,14 @@ class TensorNetwork(RecursiveNetwork):
         cuts = [d * p // TENSOR_PARTS for p in range(TENSOR_PARTS + 1)]
         return [(a, z) for a, z in zip(cuts[:-1], cuts[1:]) if z > a]
 
-    def prepare(self, params: Parameters, run_parts: PartRunner = run_in_order) -> None:
+    def prepare(self, params: Parameters, run_parts: PartRunner = run_in_order, forward_only: bool = False) -> None:
         D = 2 * self.shape.dim
 
-        def work(k: tuple[int, int]) -> None:  # Vsym[:, k*D:(k+1)*D] from V[k] for k in the range
-            symmetric_tensor_layout(self.Vsym[:, k[0] * D : k[1] * D], params.V[k[0] : k[1]])
+        def work(k: tuple[int, int]) -> None:  # the layout's part of V[k] for k in the range
+            if forward_only:  # the pair layout of tensor_term.py
+                pair_layout(self.pairs[k[0] : k[1]], params.V[k[0] : k[1]])
+            else:  # Vsym[:, k*D:(k+1)*D]
+                symmetric_tensor_layout(self.Vsym[:, k[0] * D : k[1] * D], params.V[k[0] : k[1]])
 
         run_parts(work, self._k_ranges())
 
