@@ -13,8 +13,14 @@ Backward (input gradient), with delta = Delta[m] (d,) the error at the pre-activ
 
     d h_k / d x = q_k,  so  e_x += sum_k delta_k q_k       EX[m, j] += sum_k Delta[m, k] Q[m, k*D + j]
 
-(the tensor's own gradient, dV[k] += delta_k x x^T, stays one batch-wide matrix product in
-tree_compose.py). A level's Q is computed one of two ways:
+The tensor's own gradient is one batch-wide product over all M internal nodes of a chunk
+(``tensor_gradient_pairs``), in the pair layout below: dV[k] += delta_k x x^T is symmetric in
+(i, j), so with u_p = x_i x_j over the pairs i <= j
+
+    dT[k, p] = sum_m Delta[m, k] u_p(m)          dT = Delta^T U,  (d, M) x (M, D(D+1)/2)
+
+and dV[k, i, j] = dV[k, j, i] += dT[k, p(i,j)] (``add_pair_layout_gradient``): half the
+multiply-adds of the symmetric layout's X^T G, (D, M) x (M, d*D). A level's Q is computed one of two ways:
 
 - BLAS (``tensor_term_forward_blas``): Q = X Vsym, one matrix product for the level.
 - own (``tensor_term_forward_own``): register-blocked over nodes. Nodes go in blocks of
@@ -192,6 +198,42 @@ def tensor_term_forward_pairs(Z, work, X, T, s, e):
     for m in range(n):
         for k in range(d):
             Z[s + m, k] += HT[k, m]
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+def tensor_gradient_pairs(dT, U, X, Delta):
+    """dT (d, D(D+1)/2) out = Delta^T U with U[m, p(i,j)] = X[m, i] X[m, j] (module docstring).
+
+    U (M, D(D+1)/2) workspace (filled here); X (M, D); Delta (M, d). M >= 1.
+    """
+    D = X.shape[1]
+    for m in range(X.shape[0]):
+        u = U[m]
+        x = X[m]
+        p = 0
+        for i in range(D):  # u[p(i, i..D-1)] = x_i x[i:]
+            xi = x[i]
+            row = u[p : p + D - i]
+            tail = x[i:]
+            for j in range(D - i):
+                row[j] = xi * tail[j]
+            p += D - i
+    np.dot(Delta.T, U, dT)  # (d, M) x (M, pairs)
+
+
+@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+def add_pair_layout_gradient(dV, dT):
+    """dV (d, D, D) += the pair-layout gradient: dV[k, i, j] += dT[k, p(i,j)] and dV[k, j, i] too (i < j)."""
+    d, D, _ = dV.shape
+    for k in range(d):
+        p = 0
+        for i in range(D):
+            dV[k, i, i] += dT[k, p]
+            p += 1
+            for j in range(i + 1, D):
+                dV[k, i, j] += dT[k, p]
+                dV[k, j, i] += dT[k, p]
+                p += 1
 
 
 @njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")

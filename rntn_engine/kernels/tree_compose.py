@@ -29,13 +29,13 @@ classifier plus its parent):
     leaf:   dL[w] += e       (kernels/word_rows.py: into the rows the minibatch touched)
 
 dW and dV are accumulated once per batch, as single matrix products over all M
-internal nodes: dW += Delta^T X and dVsym_layout = X^T G with
-G[m, k*D + j] = Delta[m, k] X[m, j]; the latter is then added to dV with
-dV[k, i, j] += (X^T G)[i, k*D + j].
+internal nodes: dW += Delta^T X and, in the pair layout of kernels/tensor_term.py
+(pairs i <= j, u_p = x_i x_j), dT = Delta^T U, then added to dV with
+dV[k, i, j] = dV[k, j, i] += dT[k, p(i,j)].
 
-Cost per internal node: forward 2 d D + d D^2 multiply-adds, backward about the
-same again for e_x and d D^2 for dV: 16 d^3 floating-point operations for the
-tensor terms where the unsymmetrised form needs 24 d^3.
+Cost per internal node: forward 2 d D + d D^2 multiply-adds, backward O(d D) for e_x
+(from the kept Q) and d D(D+1)/2 for dV: about 12 d^3 floating-point operations for
+the tensor terms where the unsymmetrised form needs 24 d^3.
 """
 
 from __future__ import annotations
@@ -48,6 +48,7 @@ from rntn_engine.kernels.tensor_term import (
     TILE,
     tensor_term_forward_blas,
     tensor_term_forward_own,
+    tensor_gradient_pairs,
     tensor_term_forward_pairs,
     tensor_term_input_gradient,
 )
@@ -111,17 +112,17 @@ def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_s
 
 
 @njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
-def backward_compose(dW, db, dVsym, E, Delta, EX, P, X, Q, W, left, right, order, level_start, use_tensor):
-    """Gradients of W, b (and the symmetric-layout tensor gradient), and errors down to the leaves.
+def backward_compose(dW, db, dT, E, Delta, EX, P, X, Q, U, W, left, right, order, level_start, use_tensor):
+    """Gradients of W, b (and the pair-layout tensor gradient), and errors down to the leaves.
 
-    dW (d, D) += ; db (d,) += ; dVsym (D, d*D) out: X^T G (RNTN; see module docstring) -- a
-    per-chunk workspace, overwritten; the gradient dV receives it with += (add_symmetric_layout_gradient).
+    dW (d, D) += ; db (d,) += ; dT (d, D(D+1)/2) out: Delta^T U (RNTN; kernels/tensor_term.py) -- a
+    per-chunk workspace, overwritten; the gradient dV receives it with += (add_pair_layout_gradient).
     E (N, d) in/out: error reaching each node vector; on entry from the node's own
     classifier, on exit also from its parent (leaves' rows are then final).
     Delta (M, d), EX (M, D) workspaces.  P, X, Q from forward_compose; W (d, D).
+    U (M, D(D+1)/2) workspace of the pair products, which may share Q's memory (Q is read first).
     """
     N, d = P.shape
-    D = 2 * d
     M = order.shape[0]
     for level in range(level_start.shape[0] - 2, -1, -1):  # top level first
         a = level_start[level]
@@ -142,27 +143,11 @@ def backward_compose(dW, db, dVsym, E, Delta, EX, P, X, Q, W, left, right, order
                 E[r, k] += EX[m, d + k]
     if M == 0:
         if use_tensor:
-            dVsym[:, :] = 0.0
+            dT[:, :] = 0.0
         return
     dW += np.dot(Delta.T, X)  # sum_m delta_m x_m^T: (d, M) x (M, D)
     for m in range(M):
         for k in range(d):
             db[k] += Delta[m, k]
-    if use_tensor:
-        # G[m, k*D + j] = delta_k x_j, reusing Q's storage (its forward values are no longer needed)
-        for m in range(M):
-            for k in range(d):
-                dk = Delta[m, k]
-                for j in range(D):
-                    Q[m, k * D + j] = dk * X[m, j]
-        np.dot(X.T, Q, dVsym)  # (D, M) x (M, d*D), written straight into the chunk's workspace
-
-
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
-def add_symmetric_layout_gradient(dV, dVsym):
-    """dV (d, D, D) += the symmetric-layout gradient: dV[k, i, j] += dVsym[i, k*D + j]."""
-    d, D, _ = dV.shape
-    for k in range(d):
-        for i in range(D):
-            for j in range(D):
-                dV[k, i, j] += dVsym[i, k * D + j]
+    if use_tensor:  # dT = Delta^T U, straight into the chunk's workspace (U may overwrite Q: done with it)
+        tensor_gradient_pairs(dT, U, X, Delta)

@@ -42,7 +42,8 @@ class VectorActivations(Activations):
 
     X: np.ndarray = field(default=None)  # (M, D) children [p_l ; p_r] of each internal node
     Z: np.ndarray = field(default=None)  # (M, d) pre-activations
-    Q: np.ndarray = field(default=None)  # (M, d*D) X Vsym, kept for backward (RNTN; (0, 0) for the RNN)
+    Q: np.ndarray = field(default=None)  # (M, d*D + d) X Vsym kept for backward, then the pair products
+    # (RNTN; forward only (R, d*D + 4d), the pair products' workspace; (0, 0) for the RNN)
     Delta: np.ndarray = field(default=None)  # (M, d) error at the pre-activations
     EX: np.ndarray = field(default=None)  # (M, D) error reaching x
 
@@ -68,7 +69,7 @@ class RecursiveNetwork(ModelSpec):
         d = self.shape.dim
         D = 2 * d
         # Q: X Vsym of every internal node; forward only, a block of rows of the pair products' workspace
-        q = (n_internal * d * D if backward else min(n_internal, FORWARD_Q_ROWS) * (d * D + 4 * d)) \
+        q = (n_internal * (d * D + d) if backward else min(n_internal, FORWARD_Q_ROWS) * (d * D + 4 * d)) \
             if self.with_tensor else 0
         numbers = n_nodes * d + n_internal * (D + d) + q
         return numbers + (n_nodes * d + n_internal * (d + D) if backward else 0)
@@ -83,11 +84,14 @@ class RecursiveNetwork(ModelSpec):
         N, M, D = batch.n_nodes, batch.n_internal, 2 * d
         # Q: every internal node's row when backward follows; forward only: a block of rows reused level by
         # level as the pair products' workspace (kernels/tensor_term.py, tensor_term_forward_pairs)
+        # With backward: Q's buffer holds d*D + d numbers a node, X Vsym in the first d*D a node (row
+        # after row), then the pair products U (M, D(D+1)/2) of the tensor's gradient (backward_compose).
         q_rows = (M if keep_for_backward else min(M, FORWARD_Q_ROWS)) if self.with_tensor else 0
-        q_cols = (d * D if keep_for_backward else d * D + 4 * d) if self.with_tensor else 0
+        q_cols = (d * D + d if keep_for_backward else d * D + 4 * d) if self.with_tensor else 0
         acts.resize({"P": (N, d), "X": (M, D), "Z": (M, d), "Q": (q_rows, q_cols)})
         pairs = self._no_pairs if keep_for_backward or not self.with_tensor else self.pairs
-        forward_compose(acts.P, acts.X, acts.Z, acts.Q, params.L, params.W, params.b, self.Vsym,
+        Q = self._q_view(acts, M) if keep_for_backward else acts.Q
+        forward_compose(acts.P, acts.X, acts.Z, Q, params.L, params.W, params.b, self.Vsym,
                         batch.word, batch.left, batch.right, batch.order, batch.level_start, self.with_tensor,
                         self.own_kernel_rows, pairs)
 
@@ -96,8 +100,17 @@ class RecursiveNetwork(ModelSpec):
         d = self.shape.dim
         M, D = batch.n_internal, 2 * d
         acts.resize({"Delta": (M, d), "EX": (M, D)})
-        backward_compose(grads["W"], grads["b"], layout_grad, acts.E, acts.Delta, acts.EX, acts.P, acts.X, acts.Q,
+        Q = self._q_view(acts, M)
+        U = acts.Q.reshape(-1)[: M * (d * D + d)].reshape(M, d * D + d) if self.with_tensor else acts.Q
+        backward_compose(grads["W"], grads["b"], layout_grad, acts.E, acts.Delta, acts.EX, acts.P, acts.X, Q, U,
                          params.W, batch.left, batch.right, batch.order, batch.level_start, self.with_tensor)
+
+    def _q_view(self, acts: VectorActivations, M: int) -> np.ndarray:
+        """(M, d*D) X Vsym, at the start of Q's buffer (see forward)."""
+        if not self.with_tensor:
+            return acts.Q
+        d = self.shape.dim
+        return acts.Q.reshape(-1)[: M * d * 2 * d].reshape(M, d * 2 * d)
 
     def word_errors(self, acts: VectorActivations) -> dict[str, np.ndarray]:
         return {"L": acts.E}

@@ -6,8 +6,8 @@ Parameters L, W, b, V (and the shared classifier Ws, bs), drawn in the order L, 
 V ~ U(-1/D, 1/D) (small: the model starts close to the RNN). Every step first builds the
 symmetric layout of V (kernels/tree_compose.py, symmetric_tensor_layout), or for a
 forward-only pass its pair layout (kernels/tensor_term.py, pair_layout), which the chunks
-share read-only; each chunk's tensor gradient is accumulated in that layout and folded into dV
-in chunk order (add_layout_gradients). Both run in TENSOR_PARTS fixed ranges of k on the
+share read-only; each chunk's tensor gradient is accumulated in the pair layout (half the size
+of the symmetric one) and folded into dV in chunk order (add_layout_gradients). Both run in TENSOR_PARTS fixed ranges of k on the
 objective's worker threads: every element of V, Vsym and dV belongs to one range and sees the
 same operations in the same order whatever the number of threads.
 """
@@ -18,8 +18,8 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from rntn_engine.kernels.tensor_term import pair_layout
-from rntn_engine.kernels.tree_compose import add_symmetric_layout_gradient, symmetric_tensor_layout
+from rntn_engine.kernels.tensor_term import add_pair_layout_gradient, pair_layout
+from rntn_engine.kernels.tree_compose import symmetric_tensor_layout
 from rntn_engine.model.model_spec import PartRunner, draw_classifier, draw_composition, draw_word_vectors, run_in_order
 from rntn_engine.model.rnn_model import RecursiveNetwork
 
@@ -64,16 +64,15 @@ class TensorNetwork(RecursiveNetwork):
         run_parts(work, self._k_ranges())
 
     def layout_gradient_shape(self) -> tuple[int, ...]:
-        return self.Vsym.shape
+        return self.pairs.shape  # (d, D(D+1)/2): dT of kernels/tensor_term.py
 
     def add_layout_gradient(self, grads, layout_grad: np.ndarray) -> None:
-        add_symmetric_layout_gradient(grads["V"], layout_grad)
+        add_pair_layout_gradient(grads["V"], layout_grad)
 
     def add_layout_gradients(self, grads, layout_grads: list[np.ndarray], run_parts: PartRunner = run_in_order) -> None:
-        D = 2 * self.shape.dim
 
         def work(k: tuple[int, int]) -> None:  # dV[k] for k in the range, chunk after chunk
             for layout_grad in layout_grads:
-                add_symmetric_layout_gradient(grads["V"][k[0] : k[1]], layout_grad[:, k[0] * D : k[1] * D])
+                add_pair_layout_gradient(grads["V"][k[0] : k[1]], layout_grad[k[0] : k[1]])
 
         run_parts(work, self._k_ranges())
