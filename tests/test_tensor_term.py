@@ -24,10 +24,12 @@ from rntn_engine.kernels.numpy_reference import (
 from rntn_engine.kernels.tensor_term import (
     NODE_BLOCK,
     TILE,
+    add_pair_layout_gradient,
     pair_layout,
     tensor_term_forward_blas,
     tensor_term_forward_own,
     tensor_term_forward_pairs,
+    tensor_gradient_pairs,
     tensor_term_input_gradient,
 )
 from rntn_engine.kernels.tree_compose import symmetric_tensor_layout
@@ -90,6 +92,22 @@ def test_forward_only_pair_products_equal_twin(n, d, dtype):
     _, H_ref = reference_tensor_term(V.astype(np.float64), X[2 : 2 + n].astype(np.float64))
     assert relative_error(Z[2 : 2 + n] - 1.0, H_ref) < TOLERANCE[dtype]
     assert np.all(Z[:2] == 1.0) and np.all(Z[2 + n :] == 1.0)
+
+
+@pytest.mark.parametrize("dtype", ["float64", "float32"])
+def test_tensor_gradient_in_pair_layout_equals_sum_of_outer_products(dtype):
+    d, M = 4, 7
+    rng = np.random.default_rng(11)
+    X = rng.standard_normal((M, 2 * d)).astype(dtype)
+    Delta = rng.standard_normal((M, d)).astype(dtype)
+    P = 2 * d * (2 * d + 1) // 2
+    dT = np.full((d, P), np.nan, dtype=dtype)
+    tensor_gradient_pairs(dT, np.full((M, P), np.nan, dtype=dtype), X, Delta)
+    dV = np.ones((d, 2 * d, 2 * d), dtype=dtype)  # the fold adds to what is there
+    add_pair_layout_gradient(dV, dT)
+    X64, Delta64 = X.astype(np.float64), Delta.astype(np.float64)
+    expected = sum(np.einsum("k,i,j->kij", Delta64[m], X64[m], X64[m]) for m in range(M))  # dV[k] += delta_k x x^T
+    assert relative_error(dV - 1.0, expected) < TOLERANCE[dtype]
 
 
 @pytest.mark.parametrize("dtype", ["float64", "float32"])

@@ -1,26 +1,17 @@
-"""The tensor term of one level of the RNTN (2013): forward, and the input-gradient part of backward.
+"""The tensor term of the RNTN (2013): a level's forward, the input-gradient part of backward,
+the forward-only pair products, and the tensor's gradient in the pair layout.
 
-Legend: n nodes in the level (rows s..e-1 of the batch's level order), d vector size,
-D = 2d. Vsym (D, d*D) is the symmetric layout of the tensor (tree_compose.py):
-Vsym[i, k*D + j] = S[k][i, j] with S[k] = V[k] + V[k]^T.
+Legend: n nodes in a level (rows s..e-1 of the batch's level order), M internal nodes of a
+chunk, d vector size, D = 2d, P = D(D+1)/2 pairs i <= j. Vsym (D, d*D) is the symmetric
+layout of the tensor (tree_compose.py): Vsym[i, k*D + j] = S[k][i, j], S[k] = V[k] + V[k]^T.
 
-Forward, per node m of the level with children x = X[m] (D,):
+Training forward, per node m of the level with children x = X[m] (D,):
 
     q_k  = S[k] x                 Q[m, k*D + j] = sum_i x_i Vsym[i, k*D + j]      (kept for backward)
     h_k  = x^T V[k] x = x . q_k / 2                                               Z[m, k] += h_k
 
-Backward (input gradient), with delta = Delta[m] (d,) the error at the pre-activation:
-
-    d h_k / d x = q_k,  so  e_x += sum_k delta_k q_k       EX[m, j] += sum_k Delta[m, k] Q[m, k*D + j]
-
-The tensor's own gradient is one batch-wide product over all M internal nodes of a chunk
-(``tensor_gradient_pairs``), in the pair layout below: dV[k] += delta_k x x^T is symmetric in
-(i, j), so with u_p = x_i x_j over the pairs i <= j
-
-    dT[k, p] = sum_m Delta[m, k] u_p(m)          dT = Delta^T U,  (d, M) x (M, D(D+1)/2)
-
-and dV[k, i, j] = dV[k, j, i] += dT[k, p(i,j)] (``add_pair_layout_gradient``): half the
-multiply-adds of the symmetric layout's X^T G, (D, M) x (M, d*D). A level's Q is computed one of two ways:
+Q is computed one of two ways, chosen by the level's width (tree_compose.forward_compose takes
+the own kernel for levels of at most ``own_rows`` nodes; the vector models pass OWN_KERNEL_ROWS):
 
 - BLAS (``tensor_term_forward_blas``): Q = X Vsym, one matrix product for the level.
 - own (``tensor_term_forward_own``): register-blocked over nodes. Nodes go in blocks of
@@ -29,23 +20,31 @@ multiply-adds of the symmetric layout's X^T G, (D, M) x (M, d*D). A level's Q is
   registers), into the block's NODE_BLOCK x TILE sums, which stay in L1 (``acc``). Q[m, c]
   is summed over i = 0..D-1 in that order. No packing of the tensor, no call per level.
 
-tree_compose.forward_compose picks the own kernel for levels of at most ``own_rows``
-nodes (its argument; the vector models pass OWN_KERNEL_ROWS), BLAS above.
+Either way h is then taken for all k at once as one matrix-vector product per node (Q[m]
+seen as a (d, D) matrix times x), instead of d dot products summed one term after another
+(whose chain of dependent additions cost 0.4-2.6 us per node against 0.2-1.5 with the
+product, measured).
 
-Forward only (evaluation, prediction: no Q to keep) h needs no Q at all. With the pairs
-i <= j of the upper triangle, p = 1..D(D+1)/2,
+Backward (input gradient), with delta = Delta[m] (d,) the error at the pre-activation:
 
-    h_k = sum_{i<=j} T[k, p(i,j)] u_p,   u_p = x_i x_j,   T[k, p(i,j)] = V[k,i,j] + V[k,j,i] (i < j), V[k,i,i] (i = j)
+    d h_k / d x = q_k,  so  e_x += sum_k delta_k q_k       EX[m, j] += sum_k Delta[m, k] Q[m, k*D + j]
 
-one product H^T = T U^T per block of nodes, (d, D(D+1)/2) x (D(D+1)/2, n): half the
-multiply-adds of X Vsym (``tensor_term_forward_pairs``; T built by ``pair_layout``).
+Pair layout. With u_p = x_i x_j for the pairs p = p(i, j), i <= j, row by row over the upper
+triangle, and T[k, p(i,j)] = V[k,i,j] + V[k,j,i] (i < j), V[k,i,i] (i = j) (``pair_layout``):
 
-Either way h_k = x . q_k / 2 is then taken for all k at once as one matrix-vector product
-per node (Q[m] seen as a (d, D) matrix times x), instead of d dot products summed one
-term after another (whose chain of dependent additions cost 0.4-2.6 us per node against
-0.2-1.5 with the product, measured). Both ways are deterministic and do not depend on the
-number of threads (every product runs single-threaded inside one chunk). The NumPy twins
-are ``reference_tensor_term`` and ``reference_tensor_input_gradient`` (kernels/numpy_reference.py).
+    h_k = sum_p T[k, p] u_p                     forward only (evaluation, prediction: no Q to
+                                                keep): H^T = T U^T per block, (d, P) x (P, n),
+                                                half the multiply-adds of X Vsym
+                                                (``tensor_term_forward_pairs``)
+    dT[k, p] = sum_m Delta[m, k] u_p(m)         the tensor's gradient, one batch-wide product
+                                                dT = Delta^T U, (d, M) x (M, P), half the
+                                                multiply-adds of the symmetric layout's X^T G
+                                                (``tensor_gradient_pairs``)
+    dV[k, i, j] = dV[k, j, i] += dT[k, p(i,j)]  (``add_pair_layout_gradient``)
+
+Everything here is deterministic and independent of the number of threads (every product runs
+single-threaded inside one chunk). The NumPy twins are ``reference_tensor_term`` and
+``reference_tensor_input_gradient`` (kernels/numpy_reference.py).
 """
 
 from __future__ import annotations
