@@ -27,10 +27,13 @@ from rntn_engine.kernels.adagrad_step import adagrad_l2_rows_step, adagrad_l2_st
 from rntn_engine.model.objective import L2Strengths
 from rntn_engine.model.parameters import L2_GROUP, Gradient, Parameters
 
-# Dense groups this large (the tensor V from d = 20 on) are updated in DENSE_PARTS pieces on the
+# Dense groups this large (the tensor V from d = 32 on) are updated in DENSE_PARTS pieces on the
 # worker threads: at d = 50 the serial update of V was about 5% of a 1-thread step (1.3 ms of a
-# 25 ms step, float64, measured with the per-kernel timers of DEVELOPERS.md, 2026-12-02).
-PARALLEL_MIN = 1 << 15
+# 25 ms step, float64, per-kernel timers, 2026-12-02). Smaller groups stay on the calling thread:
+# at d = 25 (V of 62,500 numbers) handing the pieces to the threads cost more than it saved (a
+# 2-thread step of 2.06-2.17 ms with them, against 1.79-1.81 ms with neither these nor the
+# tensor layout's parts; DEVELOPERS.md "Findings from the second performance round").
+PARALLEL_MIN = 1 << 18
 DENSE_PARTS = 8  # fixed, not the thread count: the penalty's sum order must not depend on threads
 
 

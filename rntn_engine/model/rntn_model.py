@@ -27,10 +27,12 @@ if TYPE_CHECKING:
     from rntn_engine.model.parameters import Parameters
 
 
-# Ranges of k the layout work is cut into. At d = 50 float64 building the layout and folding two chunks'
-# layout gradients into dV took 1.1 ms of a 24.7 ms one-thread step, serial before (per-kernel timers,
-# DEVELOPERS.md "Findings from the second performance round").
+# Ranges of k the layout work is cut into, when the tensor has at least PARALLEL_LAYOUT numbers. At
+# d = 50 float64 building the layout and folding two chunks' layout gradients into dV took 1.1 ms of a
+# 24.7 ms one-thread step, serial before (per-kernel timers); at d = 25 handing the ranges to the
+# threads cost more than it saved (DEVELOPERS.md "Findings from the second performance round").
 TENSOR_PARTS = 4
+PARALLEL_LAYOUT = 1 << 18
 
 
 class TensorNetwork(RecursiveNetwork):
@@ -49,6 +51,8 @@ class TensorNetwork(RecursiveNetwork):
 
     def _k_ranges(self) -> list[tuple[int, int]]:
         d = self.shape.dim
+        if d * (2 * d) ** 2 < PARALLEL_LAYOUT:
+            return [(0, d)]
         cuts = [d * p // TENSOR_PARTS for p in range(TENSOR_PARTS + 1)]
         return [(a, z) for a, z in zip(cuts[:-1], cuts[1:]) if z > a]
 
