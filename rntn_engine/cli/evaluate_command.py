@@ -10,9 +10,10 @@ from typing import Annotated, Optional
 
 import typer
 
-from rntn_engine.cli.app_exit import EXIT_BAD_INPUT
-from rntn_engine.cli.shared_options import JobsOption, JsonOption, ProgressOption
+from rntn_engine.cli.app_exit import EXIT_BAD_INPUT, EXIT_STOPPED_RESUMABLE, EXIT_USAGE
+from rntn_engine.cli.shared_options import JobsOption, JsonOption, MpiOption, ProgressOption
 from rntn_engine.cli.tables import render_table
+from rntn_engine.data.errors import InputError
 
 SCORE_HEADERS = {"fine_all": "fine all", "fine_root": "fine root", "binary_all": "binary all",
                  "binary_root": "binary root", "loss": "loss"}
@@ -43,32 +44,68 @@ def evaluate(
     detail: Annotated[bool, typer.Option("--detail", help="For one checkpoint: per-class precision/recall/F1, confusion matrices, accuracy by phrase length.")] = False,
     as_json: JsonOption = False,
     progress: ProgressOption = None,
+    mpi: MpiOption = False,
 ) -> None:
     """Score checkpoints on treebanks: fine-grained and binary accuracy at all nodes and at roots, and loss.
 
     Binary accuracy leaves out nodes whose gold class is neutral and predicts the side
     (negative or positive classes) with the larger total probability. Worker processes
-    score checkpoints in parallel; a damaged checkpoint is reported in its row and the
-    others go on (exit 1 only if no checkpoint could be scored).
+    score checkpoints in parallel; a damaged checkpoint, an error while scoring or a worker
+    that dies is reported in its row and the others go on (exit 1 only if no checkpoint could
+    be scored). SIGTERM, SIGHUP or SIGINT ends the workers and exits 75 without output.
+    With --mpi (under mpiexec -n N) the checkpoints, or for one checkpoint the treebank's
+    batches, are divided over the ranks, each with --jobs workers (default 1), and rank 0
+    prints and writes the same table.
     """
     from tqdm import tqdm
 
-    from rntn_engine.run.checkpoint_evaluation import SCORE_NAMES, evaluate_many, expand_checkpoint_specs, mark_best
+    from rntn_engine.run.checkpoint_evaluation import (
+        SCORE_NAMES,
+        WORKER_FAILED,
+        evaluate_many,
+        expand_checkpoint_specs,
+        mark_best,
+    )
+    from rntn_engine.run.process_group import PeerStopped, process_group
+    from rntn_engine.run.stop_signals import StopRequest
+    from rntn_engine.run.worker_processes import WorkersStopped
 
-    if best_by not in SCORE_NAMES:
-        raise typer.BadParameter(f"expected one of {', '.join(SCORE_NAMES)}", param_hint="--best-by")
-    neutral = _neutral(neutral_class)
-    paths = expand_checkpoint_specs(checkpoints)
+    group = process_group(mpi)
+    try:
+        if best_by not in SCORE_NAMES:
+            raise typer.BadParameter(f"expected one of {', '.join(SCORE_NAMES)}", param_hint="--best-by")
+        neutral = _neutral(neutral_class)
+        paths = expand_checkpoint_specs(checkpoints)
+        if detail and (len(paths) != 1 or len(treebank) != 1):
+            raise typer.BadParameter("--detail takes exactly one checkpoint and one --treebank", param_hint="--detail")
+    except (typer.BadParameter, InputError) as exc:
+        if not group.is_root:  # every rank finds the same error; rank 0 says it
+            raise PeerStopped(EXIT_BAD_INPUT if isinstance(exc, InputError) else EXIT_USAGE) from None
+        raise
     books = [str(t) for t in treebank]
     if detail:
-        if len(paths) != 1 or len(books) != 1:
-            raise typer.BadParameter("--detail takes exactly one checkpoint and one --treebank", param_hint="--detail")
-        _print_detail(paths[0], books[0], neutral, as_json, progress)
+        if group.is_root:  # one checkpoint on one treebank: rank 0 alone
+            _print_detail(paths[0], books[0], neutral, as_json, progress)
         return
     bar = tqdm(unit="tree", desc=f"{len(paths)} checkpoint(s) x {len(books)} treebank(s)",
-               disable=None if progress is None else not progress, leave=False)
-    rows = evaluate_many(paths, books, jobs or os.cpu_count() or 1, neutral, progress=bar.update)
+               disable=True if not group.is_root else (None if progress is None else not progress), leave=False)
+    if group.size > 1:  # a signal ends the ranks (the MPI launcher passes it on); nothing is written
+        from rntn_engine.run.distributed_evaluation import evaluate_on_ranks
+
+        rows = evaluate_on_ranks(group, paths, books, jobs or 1, neutral, progress=bar.update)
+    else:
+        with StopRequest() as stop:
+            try:
+                rows = evaluate_many(paths, books, jobs or os.cpu_count() or 1, neutral, progress=bar.update,
+                                     should_stop=stop.should_stop)
+            except WorkersStopped:
+                bar.close()
+                typer.echo(f"rntn: evaluate stopped by {stop.reason}: worker processes ended, nothing written",
+                           err=True)
+                raise typer.Exit(EXIT_STOPPED_RESUMABLE) from None
     bar.close()
+    if not group.is_root:
+        return
     mark_best(rows, best_by)
     if out is not None:
         _write_outputs(out, rows)
@@ -82,7 +119,8 @@ def evaluate(
         for r in rows:
             cells = ["*" if r.best else "", r.checkpoint, "-" if r.step is None else r.step,
                      "-" if r.epoch is None else r.epoch, *([r.treebank] if many else [])]
-            cells += ["damaged" if r.error and r.step is None else ("error" if r.error else _number(r.scores[s]))
+            damaged = r.error and r.step is None and not r.error.startswith(WORKER_FAILED)
+            cells += ["damaged" if damaged else ("error" if r.error else _number(r.scores[s]))
                       for s in SCORE_NAMES]
             table.append(cells)
         typer.echo(render_table(header, table, align="llrr" + "l" * many + "r" * len(SCORE_NAMES)))

@@ -1,8 +1,9 @@
 """Score many checkpoints on one or more treebanks, in worker processes, and pick the best.
 
-Each task is one checkpoint scored on every treebank, run in its own process
-(``jobs`` at a time). A checkpoint that cannot be read or scored yields rows
-carrying the error instead of scores; the other checkpoints go on.
+Each task is one checkpoint scored on every treebank, run in a worker process
+(``jobs`` at a time; run/worker_processes.py). A checkpoint that cannot be read or scored,
+an exception in a worker or a worker that dies yields rows carrying the error instead of
+scores; the other checkpoints go on.
 
 Scores per (checkpoint, treebank): fine-grained accuracy at all labelled nodes and at
 roots, binary accuracy at all nodes and at roots (run/scores.py says how), and the
@@ -12,9 +13,7 @@ mean cross-entropy per labelled node.
 from __future__ import annotations
 
 import glob
-import multiprocessing
 import os
-from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Callable
@@ -29,8 +28,10 @@ from rntn_engine.data.treebank_stats import PHRASE_LENGTH_BUCKETS, phrase_length
 from rntn_engine.model.objective import TreeModelObjective
 from rntn_engine.run.checkpoints import Checkpoint, load_checkpoint
 from rntn_engine.run.evaluation import PREDICT_BATCH_TREES, TreebankPredictions, predict_treebank
+from rntn_engine.run.fault_injection import EVALUATE_POINT, fault_from_environment
 from rntn_engine.run.run_directory import is_run_directory, list_checkpoints
 from rntn_engine.run.scores import LabelScheme, binary_counts, confusion_matrix, per_class_scores
+from rntn_engine.run.worker_processes import TaskFailed, WorkersStopped, describe_exception, run_in_workers
 
 SCORE_NAMES = ("fine_all", "fine_root", "binary_all", "binary_root", "loss")  # loss: lower is better
 
@@ -135,20 +136,39 @@ def _ratio(right, counted) -> float:
 
 
 def score_treebank(checkpoint: Checkpoint, treebank: str, scheme: LabelScheme, binarise: str | None = None,
-                   detail: bool = False, progress: Callable[[int], None] | None = None) -> ScoreTally:
+                   detail: bool = False, progress: Callable[[int], None] | None = None,
+                   share: tuple[int, int] = (0, 1), chunk_losses: list | None = None) -> ScoreTally:
     """Forward a checkpoint's model over a treebank file read in blocks, and count its scores.
 
     The file is read block by block and scored in pieces of whole prediction batches
     (PREDICT_BATCH_TREES trees), so the batches, and with them every bit of the
     result, are those of one pass over the whole treebank, and memory stays at one
     piece. ``progress`` gets the number of trees scored, after every piece.
+
+    ``share=(r, n)`` scores only batches r, r + n, r + 2n, ... (one MPI rank's share;
+    run/distributed_evaluation.py) and appends ``(batch, [loss of each chunk])`` to
+    ``chunk_losses``, from which the loss of the whole treebank is summed in one order.
     """
     config = checkpoint.config
     tally = ScoreTally(scheme, detail)
     objective = TreeModelObjective(checkpoint.params)
     pending: EncodedTreebank | None = None
+    batches_seen = 0
 
     def score(piece: EncodedTreebank) -> None:
+        nonlocal batches_seen
+        if share[1] > 1:
+            for a in range(0, piece.n_trees, PREDICT_BATCH_TREES):
+                batches_seen += 1
+                if (batches_seen - 1) % share[1] == share[0]:
+                    losses: list[float] = []
+                    part = bank_slice(piece, a, min(a + PREDICT_BATCH_TREES, piece.n_trees))
+                    tally.add(predict_treebank(objective, checkpoint.params, part, keep_probabilities=True,
+                                               chunk_losses=losses), part)
+                    chunk_losses.append((batches_seen - 1, losses))
+                    if progress is not None:
+                        progress(part.n_trees)
+            return
         pred = predict_treebank(objective, checkpoint.params, piece, keep_probabilities=True,
                                 loss_start=tally.loss_sum)
         tally.add(pred, piece)
@@ -170,19 +190,9 @@ def score_treebank(checkpoint: Checkpoint, treebank: str, scheme: LabelScheme, b
     return tally
 
 
-_PROGRESS_QUEUE = None  # per worker process: where to send the number of trees scored
-
-
-def _set_progress_queue(queue) -> None:
-    global _PROGRESS_QUEUE
-    _PROGRESS_QUEUE = queue
-
-
 def evaluate_checkpoint(path: str, treebanks: list[str], neutral: int | None = -1,
                         binarise: str | None = None, progress: Callable[[int], None] | None = None) -> list[EvaluationRow]:
-    """Score one checkpoint on every treebank (the task a worker runs). Errors become rows."""
-    if progress is None and _PROGRESS_QUEUE is not None:
-        progress = _PROGRESS_QUEUE.put
+    """Score one checkpoint on every treebank (what a worker's task runs). Errors become rows."""
     try:
         checkpoint = load_checkpoint(path)
     except (CheckpointError, CheckpointUnavailableError, OSError) as exc:
@@ -200,35 +210,63 @@ def evaluate_checkpoint(path: str, treebanks: list[str], neutral: int | None = -
     return rows
 
 
+WORKER_FAILED = "worker process failed: "  # starts the error of a row whose worker raised or died
+
+
+def row_record(row: EvaluationRow) -> dict:
+    """A row as JSON-ready values (what crosses a worker's pipe or an MPI exchange)."""
+    return asdict(row)
+
+
+def row_from_record(record: dict) -> EvaluationRow:
+    return EvaluationRow(**record)
+
+
+def score_task(task: dict, progress: Callable[[int], None] | None) -> list[dict]:
+    """A worker's task: one checkpoint on every treebank, as row records."""
+    fault = fault_from_environment()
+    if fault is not None:
+        fault(EVALUATE_POINT + Path(task["path"]).name)  # tests only: an exception or death in this task
+    rows = evaluate_checkpoint(task["path"], task["treebanks"], task["neutral"], task["binarise"], progress)
+    return [row_record(r) for r in rows]
+
+
 def evaluate_many(paths: list[Path], treebanks: list[str], jobs: int, neutral: int | None = -1,
-                  binarise: str | None = None, progress: Callable[[int], None] | None = None) -> list[EvaluationRow]:
+                  binarise: str | None = None, progress: Callable[[int], None] | None = None,
+                  should_stop: Callable[[], bool] | None = None) -> list[EvaluationRow]:
     """Score every checkpoint on every treebank with ``jobs`` worker processes; rows in input order.
 
-    ``progress`` gets numbers of trees scored, as the workers go.
+    ``progress`` gets numbers of trees scored, as the workers go. An exception while scoring a
+    checkpoint, or the death of the worker scoring it, becomes that checkpoint's rows' error.
+    ``should_stop`` is asked as the work goes: when it says yes, every worker is ended and
+    :class:`~rntn_engine.run.worker_processes.WorkersStopped` raised.
     """
-    results: dict[int, list[EvaluationRow]] = {}
+    tasks = [{"path": str(p), "treebanks": treebanks, "neutral": neutral, "binarise": binarise} for p in paths]
     jobs = max(1, min(jobs, len(paths)))
     if jobs == 1:
-        for i, p in enumerate(paths):
-            results[i] = evaluate_checkpoint(str(p), treebanks, neutral, binarise, progress)
+        def progress_or_stop(n: int) -> None:
+            if progress is not None:
+                progress(n)
+            if should_stop is not None and should_stop():
+                raise WorkersStopped()
+
+        results = []
+        for task in tasks:
+            if should_stop is not None and should_stop():
+                raise WorkersStopped()
+            try:
+                results.append(score_task(task, progress_or_stop))
+            except Exception as exc:  # the row's error, as from a worker process
+                results.append(TaskFailed(describe_exception(exc)))
     else:
-        # spawn: fresh interpreters, no inherited threads or locks; one BLAS thread each (objective.py)
-        context = multiprocessing.get_context("spawn")
-        queue = context.SimpleQueue() if progress else None
-        with ProcessPoolExecutor(jobs, mp_context=context, initializer=_set_progress_queue,
-                                 initargs=(queue,)) as pool:
-            futures = {pool.submit(evaluate_checkpoint, str(p), treebanks, neutral, binarise): i
-                       for i, p in enumerate(paths)}
-            pending = set(futures)
-            while pending:
-                done, pending = wait(pending, timeout=0.25, return_when=FIRST_COMPLETED)
-                while queue is not None and not queue.empty():
-                    progress(queue.get())
-                for future in done:
-                    results[futures[future]] = future.result()
-            while queue is not None and not queue.empty():
-                progress(queue.get())
-    return [row for i in range(len(paths)) for row in results[i]]
+        results = run_in_workers(score_task, tasks, jobs, progress, should_stop)
+    rows = []
+    for task, result in zip(tasks, results):
+        if isinstance(result, TaskFailed):
+            rows += [EvaluationRow(task["path"], tb, error=WORKER_FAILED + result.error) for tb in treebanks]
+        else:
+            rows += [row_from_record(r) for r in result]
+    return rows
 
 
 def mark_best(rows: list[EvaluationRow], metric: str) -> None:
