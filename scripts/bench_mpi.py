@@ -13,7 +13,8 @@ the training loop's own calls (``loss_and_gradient(..., group)`` then
     compute        everything else: own chunks forward and backward, the reduction of every
                    chunk's gradient in chunk order, the AdaGrad step
 
-The speed-up is (seconds per step on 1 rank) / (seconds per step on 2 ranks), both medians
+Also per rank: compute's CPU seconds per wall second (cpu/wall; below 1.0 the rank waited for a
+core that other processes held). The speed-up is (seconds per step on 1 rank) / (seconds per step on 2 ranks), both medians
 over rounds, measured in the same run. Besides, once on 1 rank: the bytes one chunk's
 gradient takes in the exchange, the seconds to add one chunk gradient in the reduction, and
 the seconds of one AdaGrad step: the numbers the README's scaling model rests on
@@ -53,10 +54,11 @@ class TimedRanks:
         self.is_root = group.is_root
         self.idle = 0.0
         self.communication = 0.0
+        self.exchange_cpu = 0.0  # CPU seconds of this process inside the exchange (MPI polls while it waits)
         self.bytes_sent = 0
 
     def allgather_bytes(self, data: bytes) -> list[bytes]:
-        t0 = time.perf_counter()
+        c0, t0 = time.process_time(), time.perf_counter()
         if self.group.is_mpi:
             self.group._comm.Barrier()
         t1 = time.perf_counter()
@@ -64,6 +66,7 @@ class TimedRanks:
         t2 = time.perf_counter()
         self.idle += t1 - t0
         self.communication += t2 - t1
+        self.exchange_cpu += time.process_time() - c0
         self.bytes_sent += len(data)
         return out
 
@@ -97,15 +100,18 @@ def worker(args) -> None:
     passes = []
     with threadpool_limits(limits=1, user_api="blas"):
         for p in range(args.passes + 1):  # pass 0 warms up (kernels, workspaces)
-            group.idle = group.communication = 0.0
+            group.idle = group.communication = group.exchange_cpu = 0.0
             group.bytes_sent = 0
-            started = time.perf_counter()
+            cpu, started = time.process_time(), time.perf_counter()
             for chunks in batches:
                 objective.loss_and_gradient(params, grads, chunks, include_l2=False, group=group)
                 optimiser.step_with_l2(params, grads, objective.l2)
             wall = time.perf_counter() - started
+            cpu = time.process_time() - cpu
             if p:
-                passes.append((wall, group.idle, group.communication, group.bytes_sent))
+                # compute's CPU seconds per wall second: below 1, this rank waited for a core (other jobs)
+                compute_share = (cpu - group.exchange_cpu) / max(wall - group.idle - group.communication, 1e-9)
+                passes.append((wall, group.idle, group.communication, group.bytes_sent, compute_share))
         # parts of the step, timed alone (rank 0's numbers are reported): one chunk's reduction, one AdaGrad step
         objective.loss_and_gradient(params, grads, batches[0], include_l2=False)
         chunk_grads = objective._chunk_grads[: len(batches[0])]
@@ -121,6 +127,14 @@ def worker(args) -> None:
             optimiser.step_with_l2(params, grads, objective.l2)
             step_times.append(time.perf_counter() - t0)
         message = len(chunk_grads[0].pack())
+        pack_times, unpack_times = [], []
+        for _ in range(20):  # what a rank does with its own chunk, and with each chunk it receives
+            t0 = time.perf_counter()
+            packed = chunk_grads[0].pack()
+            t1 = time.perf_counter()
+            chunk_grads[-1].unpack(packed)
+            pack_times.append(t1 - t0)
+            unpack_times.append(time.perf_counter() - t1)
     objective.close()
     per_rank = group.group.allgather_bytes(json.dumps(passes).encode())
     if not group.is_root:
@@ -133,13 +147,16 @@ def worker(args) -> None:
     per_step["idle"] = statistics.mean(statistics.median(x[1] for x in r) for r in ranks) / steps
     per_step["communication"] = statistics.mean(statistics.median(x[2] for x in r) for r in ranks) / steps
     per_step["compute"] = per_step["wall"] - per_step["idle"] - per_step["communication"]
+    compute_cpu_per_wall = statistics.mean(statistics.median(x[4] for x in r) for r in ranks)
     print(json.dumps({
         "ranks": group.size, "batch_size": batch, "chunks": args.chunks, "dim": args.dim, "dtype": args.dtype,
-        "steps": steps, "seconds_per_step": per_step, "trees_per_s": batch / per_step["wall"],
+        "steps": steps, "seconds_per_step": per_step, "compute_cpu_per_wall": compute_cpu_per_wall, "trees_per_s": batch / per_step["wall"],
         "bytes_sent_per_step": passes[-1][3] / steps,
         "chunk_message_bytes": message,
         "reduce_one_chunk_s": statistics.median(reduce_times),
         "adagrad_step_s": statistics.median(step_times),
+        "pack_one_chunk_s": statistics.median(pack_times),
+        "unpack_one_chunk_s": statistics.median(unpack_times),
     }))
 
 
@@ -205,16 +222,18 @@ def main() -> None:
           f"{args.steps} minibatches per pass, median of {args.passes} passes per launch, "
           f"median of {args.rounds} launches")
     header = f"{'batch':>5} {'ranks':>5} {'ms/step':>8} {'compute':>8} {'comm':>7} {'idle':>7} {'trees/s':>8} " \
-             f"{'speed-up':>8} {'load':>9}"
+             f"{'speed-up':>8} {'cpu/wall':>8} {'load':>9}"
     print(header)
     for row in summary["rows"]:
         print(f"{row['batch_size']:>5} {row['ranks']:>5} {1e3 * row['wall']:8.2f} {1e3 * row['compute']:8.2f} "
               f"{1e3 * row['communication']:7.2f} {1e3 * row['idle']:7.2f} {row['trees_per_s']:8.1f} "
-              f"{row.get('speed_up', float('nan')):8.2f} {row['load_min']:4.1f}-{row['load_max']:<4.1f}")
+              f"{row.get('speed_up', float('nan')):8.2f} {row['compute_cpu_per_wall']:8.2f} "
+              f"{row['load_min']:4.1f}-{row['load_max']:<4.1f}")
     parts = summary["parts"]
     print(f"one chunk's gradient in the exchange: {parts['chunk_message_bytes']} bytes; adding one chunk "
           f"gradient: {1e3 * parts['reduce_one_chunk_s']:.3f} ms; one AdaGrad step: "
-          f"{1e3 * parts['adagrad_step_s']:.3f} ms; compute per tree on 1 rank (batch "
+          f"{1e3 * parts['adagrad_step_s']:.3f} ms; pack one chunk {1e3 * parts['pack_one_chunk_s']:.3f} ms, "
+          f"unpack one {1e3 * parts['unpack_one_chunk_s']:.3f} ms; compute per tree on 1 rank (batch "
           f"{parts['batch_size']}): {1e3 * parts['compute_per_tree_s']:.3f} ms")
 
 
@@ -226,6 +245,7 @@ def summarise(records: list[dict], args) -> dict:
             med = {k: statistics.median(r["seconds_per_step"][k] for r in mine)
                    for k in ("wall", "compute", "communication", "idle")}
             rows.append({"batch_size": batch, "ranks": ranks, **med, "trees_per_s": batch / med["wall"],
+                         "compute_cpu_per_wall": statistics.median(r["compute_cpu_per_wall"] for r in mine),
                          "load_min": min(r["load_1min_before"] for r in mine),
                          "load_max": max(r["load_1min_before"] for r in mine)})
         one, two = rows[-2], rows[-1]
@@ -237,6 +257,8 @@ def summarise(records: list[dict], args) -> dict:
         "chunk_message_bytes": single[0]["chunk_message_bytes"],
         "reduce_one_chunk_s": statistics.median(r["reduce_one_chunk_s"] for r in single),
         "adagrad_step_s": statistics.median(r["adagrad_step_s"] for r in single),
+        "pack_one_chunk_s": statistics.median(r["pack_one_chunk_s"] for r in single),
+        "unpack_one_chunk_s": statistics.median(r["unpack_one_chunk_s"] for r in single),
         "batch_size": largest,
         # the batch's own work per tree: the step minus the reduction of its chunks and the AdaGrad step
         "compute_per_tree_s": statistics.median(
