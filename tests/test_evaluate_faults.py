@@ -6,6 +6,7 @@ checkpoint file NAME, in whichever worker process runs it), never by timing.
 
 import json
 import os
+import signal
 import subprocess
 import sys
 import time
@@ -115,11 +116,15 @@ def test_sigterm_to_evaluate_ends_its_workers_and_exits_75(small_run, tmp_path):
     out = tmp_path / "scores"
     command = subprocess.Popen(RNTN + evaluate_args(root, run_dir, out), env=env, stdout=subprocess.PIPE,
                                stderr=subprocess.PIPE, text=True)
-    stdout, stderr = command.communicate(timeout=120)
-    assert command.returncode == 75, stderr
-    assert "rntn: evaluate stopped by SIGTERM" in stderr and "Traceback" not in stderr
-    assert stdout == "" and not (tmp_path / "scores.json").exists()
-    deadline = time.monotonic() + 10  # a moment for the kernel to reap what ended; no worker may remain
-    while processes_with(marker) and time.monotonic() < deadline:
-        time.sleep(0.1)
-    assert processes_with(marker) == []
+    try:
+        stdout, stderr = command.communicate(timeout=120)
+        assert command.returncode == 75, stderr
+        assert "rntn: evaluate stopped by SIGTERM" in stderr and "Traceback" not in stderr
+        assert stdout == "" and not (tmp_path / "scores.json").exists()
+        deadline = time.monotonic() + 10  # a moment for the kernel to reap what ended; no worker may remain
+        while processes_with(marker) and time.monotonic() < deadline:
+            time.sleep(0.1)
+        assert processes_with(marker) == []
+    finally:  # a failed run leaves nothing behind either
+        for pid in processes_with(marker):
+            os.kill(pid, signal.SIGKILL)
