@@ -57,12 +57,12 @@ class TimedRanks:
         self.exchange_cpu = 0.0  # CPU seconds of this process inside the exchange (MPI polls while it waits)
         self.bytes_sent = 0
 
-    def allgather_bytes(self, data: bytes) -> list[bytes]:
+    def allgather_views(self, data) -> list[memoryview]:
         c0, t0 = time.process_time(), time.perf_counter()
         if self.group.is_mpi:
             self.group._comm.Barrier()
         t1 = time.perf_counter()
-        out = self.group.allgather_bytes(data)
+        out = self.group.allgather_views(data)
         t2 = time.perf_counter()
         self.idle += t1 - t0
         self.communication += t2 - t1
@@ -126,13 +126,14 @@ def worker(args) -> None:
             t0 = time.perf_counter()
             optimiser.step_with_l2(params, grads, objective.l2)
             step_times.append(time.perf_counter() - t0)
-        message = len(chunk_grads[0].pack())
+        message = chunk_grads[0].packed_size()
+        packed = np.empty(message, dtype=np.uint8)
         pack_times, unpack_times = [], []
         for _ in range(20):  # what a rank does with its own chunk, and with each chunk it receives
             t0 = time.perf_counter()
-            packed = chunk_grads[0].pack()
+            chunk_grads[0].pack_into(packed)
             t1 = time.perf_counter()
-            chunk_grads[-1].unpack(packed)
+            chunk_grads[-1].unpack(memoryview(packed))
             pack_times.append(t1 - t0)
             unpack_times.append(time.perf_counter() - t1)
     objective.close()

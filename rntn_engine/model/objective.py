@@ -137,11 +137,27 @@ class ChunkGradient:
 
     def pack(self) -> bytes:
         """Everything the reduction reads, as bytes (the word arrays share their rows: one leaf, one word)."""
+        out = np.empty(self.packed_size(), dtype=np.uint8)
+        self.pack_into(out)
+        return out.tobytes()
+
+    def packed_size(self) -> int:
+        n = next(iter(self.rows.values())).rows.size
+        return 16 + self.flat.nbytes + 8 * n + sum(n * r.width * self.flat.itemsize for r in self.rows.values())
+
+    def pack_into(self, out: np.ndarray) -> None:
+        """:meth:`pack`'s bytes written into ``out`` (uint8, ``packed_size()`` long): one copy, no temporaries."""
         rows = next(iter(self.rows.values())).rows
-        parts = [np.array([self.loss], dtype=np.float64).tobytes(), np.array([rows.size], dtype=np.int64).tobytes(),
-                 self.flat.tobytes(), rows.astype(np.int64).tobytes()]
-        parts += [np.ascontiguousarray(r.values).tobytes() for r in self.rows.values()]
-        return b"".join(parts)
+        out[:8].view(np.float64)[0] = self.loss
+        out[8:16].view(np.int64)[0] = rows.size
+        at = 16 + self.flat.nbytes
+        out[16:at].view(self.flat.dtype)[:] = self.flat
+        out[at : at + 8 * rows.size].view(np.int64)[:] = rows
+        at += 8 * rows.size
+        for word_rows in self.rows.values():
+            size = rows.size * word_rows.width * self.flat.itemsize
+            out[at : at + size].view(self.flat.dtype).reshape(rows.size, -1)[:] = word_rows.values
+            at += size
 
     def unpack(self, data: bytes) -> None:
         """The inverse of :meth:`pack` (the same model and dtype on both sides)."""
@@ -287,10 +303,15 @@ class TreeModelObjective:
         else:
             for k in mine:
                 run(k)
-        if ranks > 1:  # every rank gets every chunk's share
-            packed = b"".join(np.array([k, len(blob)], dtype=np.int64).tobytes() + blob
-                              for k in mine for blob in [self._chunk_grads[k].pack()])
-            for data in group.allgather_bytes(packed):
+        if ranks > 1:  # every rank gets every chunk's share: (chunk, size, packed gradient) for each of mine
+            sizes = [self._chunk_grads[k].packed_size() for k in mine]
+            packed = np.empty(sum(16 + size for size in sizes), dtype=np.uint8)
+            at = 0
+            for k, size in zip(mine, sizes):
+                packed[at : at + 16].view(np.int64)[:] = (k, size)
+                self._chunk_grads[k].pack_into(packed[at + 16 : at + 16 + size])
+                at += 16 + size
+            for data in group.allgather_views(packed):
                 view, at = memoryview(data), 0
                 while at < len(view):
                     k, size = (int(x) for x in np.frombuffer(view[at : at + 16], dtype=np.int64))
