@@ -60,12 +60,15 @@ class Network:
 
 
 # README "MPI": measured by scripts/bench_mpi.py, RNTN d = 50, float64 (update both together)
-README_COSTS = StepCosts(per_tree_s=0.906e-3, reduce_chunk_s=0.287e-3, adagrad_step_s=0.972e-3,
-                         message_bytes=4086928, unpack_chunk_s=0.5e-3, pack_chunk_s=1.0e-3)
+README_COSTS = StepCosts(per_tree_s=0.863e-3, reduce_chunk_s=0.290e-3, adagrad_step_s=1.020e-3,
+                         message_bytes=4086928, unpack_chunk_s=0.309e-3, pack_chunk_s=0.305e-3)
 NETWORKS = (
     Network("100 Gb/s InfiniBand-class (10 GB/s, 2 us)", 10e9, 2e-6),
     Network("10 Gb/s Ethernet (1.1 GB/s, 30 us)", 1.1e9, 30e-6),
 )
+
+
+EFFICIENCY_AT = (128, 1024)  # batch sizes whose efficiency is printed too
 
 
 def seconds_per_step(n_ranks: int, batch: int, costs: StepCosts, network: Network) -> float:
@@ -112,11 +115,13 @@ def main() -> None:
           f"u = {1e3 * costs.unpack_chunk_s:.3f} ms, p = {1e3 * costs.pack_chunk_s:.3f} ms")
     for network in NETWORKS:
         print(f"\n{network.name}")
-        print(f"{'ranks':>5} {'batch for E>=' + str(args.efficiency):>15} {'ms/step':>9} {'trees/s':>9}")
+        print(f"{'ranks':>5} {'batch for E>=' + str(args.efficiency):>15} {'ms/step':>9} {'trees/s':>9}  "
+              + "  ".join(f"{'E at ' + str(b):>9}" for b in EFFICIENCY_AT))
         for n in args.ranks:
             batch = smallest_batch(n, args.efficiency, costs, network)
             t = seconds_per_step(n, batch, costs, network)
-            print(f"{n:>5} {batch:>15} {1e3 * t:9.1f} {batch / t:9.0f}")
+            print(f"{n:>5} {batch:>15} {1e3 * t:9.1f} {batch / t:9.0f}  "
+                  + "  ".join(f"{efficiency(n, b, costs, network):9.2f}" for b in EFFICIENCY_AT))
 
 
 if __name__ == "__main__":
