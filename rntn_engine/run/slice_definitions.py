@@ -202,7 +202,10 @@ def read_slice_file(path: str | Path) -> list[SliceDefinition]:
         message = str(exc)
         where = re.search(r"\(at line (\d+), column (\d+)\)", message)
         message = re.sub(r"\s*\(at (line \d+, column \d+|end of document)\)", "", message)
-        line, column = (int(where.group(1)), int(where.group(2))) if where else (None, None)
+        if where:
+            line, column = int(where.group(1)), int(where.group(2))
+        else:  # "at end of document": the place after the last character
+            line, column = text.count("\n") + 1, len(text) - (text.rfind("\n") + 1) + 1
         raise SliceFileError(path, f"not valid TOML: {message}", line, column) from None
     where = _Lines(text)
     if not data:
