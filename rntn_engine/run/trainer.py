@@ -711,4 +711,6 @@ def format_epoch_line(record: dict) -> str:
     line = f"epoch {record['epoch']:>3}  step {record['step']:>7}  train loss {record['train_loss']:.4f}"
     if "dev_fine_all" in record:
         line += f"  dev fine all-nodes {record['dev_fine_all']:.4f}  root {record['dev_fine_root']:.4f}"
+        if "dev_macro_f1_all" in record:
+            line += f"  macro-F1 all-nodes {record['dev_macro_f1_all']:.4f}  root {record['dev_macro_f1_root']:.4f}"
     return line + f"  ({record['wall_seconds']:.1f} s)"
