@@ -2,7 +2,7 @@
 
 For a minibatch of B trees whose leaves hold the set of distinct words U:
 
-    J = (1/B) * sum over labelled nodes of -log y[t]
+    J = (1/B) * sum over labelled nodes of -w[t] log y[t]      (w: class weights, all 1 by default)
         + sum over dense groups g of (lambda_g / 2) * ||theta_g||^2
         + (lambda_words / 2) * sum over w in U of ||L[w] - A[w]||^2
         + (lambda_word_matrices / 2) * sum over w in U of ||LM[w]||^2          (MV-RNN)
@@ -163,8 +163,12 @@ class TreeModelObjective:
     """Loss, gradient and class probabilities of the RNN / RNTN / MV-RNN over flattened batches."""
 
     def __init__(self, params: Parameters, l2: L2Strengths | None = None, threads: int = 1,
-                 anchors: dict[str, np.ndarray] | None = None) -> None:
+                 anchors: dict[str, np.ndarray] | None = None, class_weights: np.ndarray | None = None) -> None:
         self.shape = params.shape
+        # (C,) the weight of each gold class in the training loss (run/class_weights.py); prediction and
+        # the forward-only scores (forward, forward_chunks) always use the plain cross-entropy (ones)
+        self._ones = np.ones(self.shape.num_classes, dtype=np.float64)
+        self.class_weights = self._ones if class_weights is None else np.asarray(class_weights, dtype=np.float64)
         # word array name -> the values its L2 term pulls toward (absent: toward zero)
         self.anchors = dict(anchors or {})
         self.use_tensor = self.shape.model == "rntn"
@@ -199,7 +203,7 @@ class TreeModelObjective:
         return self._workspaces[k]
 
     def _forward_chunk(self, params: Parameters, batch: FlatBatch, ws: _Workspace, scale: float,
-                       keep_for_backward: bool = True):
+                       keep_for_backward: bool = True, weights: np.ndarray | None = None):
         """(loss, P, Y) of one chunk; the backward pass finds the rest in ``ws`` under the same names."""
         d, C = self.shape.dim, self.shape.num_classes
         N, M, D = batch.n_nodes, batch.n_internal, 2 * d
@@ -220,7 +224,8 @@ class TreeModelObjective:
                             batch.word, batch.left, batch.right, batch.order, batch.level_start, self.use_tensor)
         Y = ws.get("Y", N, C)  # (N, C) class probabilities
         S = ws.get("S", N, C)  # (N, C) class scores
-        loss = forward_classify(Y, S, P, params.Ws, params.bs, batch.label, scale)
+        weights = self.class_weights if weights is None else weights
+        loss = forward_classify(Y, S, P, params.Ws, params.bs, batch.label, weights, scale)
         return loss, P, Y
 
     def _gradient_chunk(self, params: Parameters, grads: dict[str, np.ndarray], dVsym: np.ndarray,
@@ -233,7 +238,7 @@ class TreeModelObjective:
         dS = ws.get("dS", N, C)  # (N, C) softmax error
         Delta = ws.get("Delta", M, d)  # (M, d) error at pre-activations
         EX = ws.get("EX", M, D)  # (M, D) error reaching x
-        backward_classify(grads["Ws"], grads["bs"], E, dS, Y, P, params.Ws, batch.label, scale)
+        backward_classify(grads["Ws"], grads["bs"], E, dS, Y, P, params.Ws, batch.label, self.class_weights, scale)
         if self.use_matrices:
             PM = ws.get("PM", N, d * d).reshape(N, d, d)  # from the forward pass
             ABt = ws.get("ABt", M * d, D)  # from the forward pass
@@ -352,7 +357,8 @@ class TreeModelObjective:
         """
         if self.use_tensor:
             symmetric_tensor_layout(self._Vsym, params.V)
-        loss, P, Y = self._forward_chunk(params, batch, self._slot(0), 1.0, keep_for_backward=False)
+        loss, P, Y = self._forward_chunk(params, batch, self._slot(0), 1.0, keep_for_backward=False,
+                                         weights=self._ones)
         return (loss, P.copy(), Y.copy()) if copy else (loss, P, Y)
 
     def forward_chunks(self, params: Parameters, chunks: list[FlatBatch]) -> list[tuple[float, np.ndarray]]:
@@ -365,7 +371,8 @@ class TreeModelObjective:
             symmetric_tensor_layout(self._Vsym, params.V)
 
         def run(k: int):
-            loss, _, Y = self._forward_chunk(params, chunks[k], self._slot(k), 1.0, keep_for_backward=False)
+            loss, _, Y = self._forward_chunk(params, chunks[k], self._slot(k), 1.0, keep_for_backward=False,
+                                             weights=self._ones)
             return loss, Y
 
         if self._pool is not None and len(chunks) > 1:
