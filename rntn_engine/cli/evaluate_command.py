@@ -12,6 +12,7 @@ import typer
 
 from rntn_engine.cli.app_exit import EXIT_BAD_INPUT
 from rntn_engine.cli.shared_options import JobsOption, JsonOption, ProgressOption
+from rntn_engine.cli.slice_options import SliceFilesOption, SliceOption, slices_from_options
 from rntn_engine.cli.tables import render_table
 
 SCORE_HEADERS = {"fine_all": "fine all", "fine_root": "fine root", "binary_all": "binary all",
@@ -35,25 +36,6 @@ def _number(x: float, digits: int = 4) -> str:
     return "-" if x is None or x != x else f"{x:.{digits}f}"
 
 
-def _slices(slice_files: list[Path] | None, slice_options: list[str] | None) -> tuple:
-    """The slices of every --slices file, then of every --slice option; names must differ."""
-    from rntn_engine.run.slice_definitions import read_slice_file, slice_from_option
-
-    slices = [s for path in slice_files or () for s in read_slice_file(path)]
-    for text in slice_options or ():
-        try:
-            slices.append(slice_from_option(text))
-        except ValueError as exc:
-            raise typer.BadParameter(str(exc), param_hint="--slice") from None
-    seen = set()
-    for s in slices:
-        if s.name in seen:
-            raise typer.BadParameter(f"two slices are named {s.name!r}: give each slice a name of its own",
-                                     param_hint="--slice/--slices")
-        seen.add(s.name)
-    return tuple(slices)
-
-
 def evaluate(
     checkpoints: Annotated[list[str], typer.Argument(help="Checkpoint files, glob patterns (quote them) or run directories (all their checkpoints).")],
     treebank: Annotated[list[Path], typer.Option("--treebank", "-t", help="Treebank to score on; repeat for several.")],
@@ -62,8 +44,8 @@ def evaluate(
     neutral_class: Annotated[Optional[str], typer.Option("--neutral-class", help="Neutral class left out of binary scores, or 'none'. [default: C//2 for odd C, none for even C]")] = None,
     out: Annotated[Optional[Path], typer.Option("--out", help="Also write the table to OUT.csv and OUT.json.")] = None,
     detail: Annotated[bool, typer.Option("--detail", help="For one checkpoint: per-class precision/recall/F1, confusion matrices, accuracy by phrase length, and the same per slice.")] = False,
-    slice_files: Annotated[Optional[list[Path]], typer.Option("--slices", help="Slice file (TOML, one table per slice: README \"Slices\"); repeat for several.")] = None,
-    slice_options: Annotated[Optional[list[str]], typer.Option("--slice", metavar="NAME=KIND[:VALUE]", help="A slice: KIND phrase-words:W1,W2 | tree-words:W1,W2 | phrase-length:N-M | root-class:C1,C2 | opposite-children; repeat for several.")] = None,
+    slice_files: SliceFilesOption = None,
+    slice_options: SliceOption = None,
     as_json: JsonOption = False,
     progress: ProgressOption = None,
 ) -> None:
@@ -84,7 +66,7 @@ def evaluate(
     if best_by not in SCORE_NAMES:
         raise typer.BadParameter(f"expected one of {', '.join(SCORE_NAMES)}", param_hint="--best-by")
     neutral = _neutral(neutral_class)
-    slices = _slices(slice_files, slice_options)
+    slices = slices_from_options(slice_files, slice_options)
     paths = expand_checkpoint_specs(checkpoints)
     books = [str(t) for t in treebank]
     if detail:
