@@ -15,6 +15,7 @@ import numpy as np
 import pytest
 
 from demo_slices import write_demo_slices
+from rntn_engine.model.model_registry import MODELS
 from rntn_engine.cli.app import main
 from rntn_engine.run.checkpoints import load_checkpoint
 from rntn_engine.run.run_directory import list_checkpoints
@@ -56,7 +57,7 @@ def final(run_dir):
     return c.params.flat, c.adagrad_sums.flat
 
 
-SETTINGS = [(m, t) for m in ("rnn", "rntn", "mvrnn") for t in ("float32", "float64")]
+SETTINGS = [(m, t) for m in MODELS for t in ("float32", "float64")]
 ALL_SETTINGS_ON_TWO_RANKS = """
 import sys
 from rntn_engine.cli.app import main

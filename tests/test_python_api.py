@@ -3,9 +3,6 @@ with the command line."""
 
 import os
 import re
-import shutil
-import subprocess
-import sys
 import threading
 from pathlib import Path
 

@@ -40,12 +40,14 @@ from rntn_engine.data.vocabulary import Vocabulary, vocabulary_from_counts
 from rntn_engine.model.adagrad import AdaGrad
 from rntn_engine.model.objective import L2Strengths, TreeModelObjective, split_into_chunks
 from rntn_engine.model.parameters import (
+    L2_GROUPS,
     Gradient,
     MemoryLimitError,
     ModelShape,
     Parameters,
     check_memory,
     init_parameters,
+    largest_minibatch,
 )
 from rntn_engine.run.checkpoints import Checkpoint, load_checkpoint, newest_valid_checkpoint, save_checkpoint
 from rntn_engine.run.evaluation import TreebankPredictions, predict_treebank
@@ -363,7 +365,8 @@ class Trainer:
         bank = data.train
         shape = ModelShape(config.model, len(data.vocabulary), config.dim, config.num_classes, config.dtype)
         try:
-            check_memory(shape, config.max_memory_gb * 2**30, anchored_words=config.l2_words_toward == "start")
+            minibatch = largest_minibatch(np.diff(bank.start), config.batch_size)
+            check_memory(shape, config.max_memory_gb * 2**30, config.l2_words_toward == "start", minibatch)
         except MemoryLimitError as exc:
             raise TrainingError(str(exc)) from None
         frozen = ("L",) if config.freeze_vectors else ()
@@ -390,8 +393,7 @@ class Trainer:
         self.write_run_file(METRICS_FILE, lambda: rewrite_metrics_log(self.run_dir, history))
 
         grads = Gradient(shape)
-        l2 = L2Strengths(words=config.l2_words, compose=config.l2_compose, tensor=config.l2_tensor,
-                         classifier=config.l2_classifier, word_matrices=config.l2_word_matrices)
+        l2 = L2Strengths(**{group: getattr(config, f"l2_{group}") for group in L2_GROUPS})
         if checkpoint is None and config.class_weights != "none":
             state.class_weights = resolve_class_weights(config.class_weights, bank.label, config.num_classes).tolist()
         weights = np.array(state.class_weights, dtype=np.float64) if state.class_weights else None
