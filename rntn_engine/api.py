@@ -241,12 +241,17 @@ def resume(run_dir: str | Path, *, stop: StopRequest | None = None, echo: Callab
 
 
 def evaluate(checkpoints: Sequence[str | Path], treebanks: Sequence[str | Path], jobs: int = 1,
-             best_by: str = "fine_root", neutral_class: int | None = -1) -> list[EvaluationRow]:
+             best_by: str = "fine_root", neutral_class: int | None = -1,
+             slices: Sequence[str] = (), slice_files: Sequence[str | Path] = ()) -> list[EvaluationRow]:
     """Score checkpoints (files, glob patterns, run directories) on treebanks: the rows of ``rntn evaluate``,
     with the best row of each treebank marked. ``neutral_class``: -1 the default for the number of
-    classes, None for no neutral class."""
+    classes, None for no neutral class. ``slices`` (``"NAME=KIND[:VALUE]"`` as ``--slice``) and
+    ``slice_files`` add a row per slice after each treebank's row (``row.slice`` names it)."""
+    from rntn_engine.run.slice_definitions import read_slice_file, slice_from_option
+
+    definitions = [s for f in slice_files for s in read_slice_file(f)] + [slice_from_option(s) for s in slices]
     paths = expand_checkpoint_specs([str(c) for c in checkpoints])
-    rows = evaluate_many(paths, [str(t) for t in treebanks], jobs, neutral_class)
+    rows = evaluate_many(paths, [str(t) for t in treebanks], jobs, neutral_class, slices=tuple(definitions))
     mark_best(rows, best_by)
     return rows
 

@@ -4,9 +4,9 @@ Each task is one checkpoint scored on every treebank, run in its own process
 (``jobs`` at a time). A checkpoint that cannot be read or scored yields rows
 carrying the error instead of scores; the other checkpoints go on.
 
-Scores per (checkpoint, treebank): fine-grained accuracy at all labelled nodes and at
-roots, binary accuracy at all nodes and at roots (run/scores.py says how), and the
-mean cross-entropy per labelled node.
+Scores per (checkpoint, treebank): fine-grained accuracy, binary accuracy and macro-F1 at all
+labelled nodes and at roots (run/scores.py says how), and the mean cross-entropy per labelled
+node; the same for each slice (run/slice_definitions.py), as rows after the treebank's own.
 """
 
 from __future__ import annotations
