@@ -175,6 +175,16 @@ def _hand_checkpoint(tmp_path):
     return Checkpoint(params, vocabulary, config), path
 
 
+def _hand_model_file(tmp_path, slice_text):
+    """(model file, treebank, slice file) of the hand-made case, the slice file holding ``slice_text``."""
+    checkpoint, path = _hand_checkpoint(tmp_path)
+    model = tmp_path / "hand.h5"
+    save_checkpoint(model, checkpoint.params, checkpoint.vocabulary, checkpoint.config)
+    slice_file = tmp_path / "slices.toml"
+    slice_file.write_text(slice_text, encoding="utf-8")
+    return model, path, slice_file
+
+
 def _nll(scores, gold):
     """-log softmax(scores)[gold], written out."""
     return math.log(sum(math.exp(s) for s in scores)) - scores[gold]
@@ -252,11 +262,7 @@ def test_detail_gives_the_per_class_breakdown_of_each_slice(tmp_path):
 
 
 def test_evaluate_command_prints_and_writes_slice_rows(tmp_path):
-    checkpoint, path = _hand_checkpoint(tmp_path)
-    model = tmp_path / "hand.h5"
-    save_checkpoint(model, checkpoint.params, checkpoint.vocabulary, checkpoint.config)
-    slice_file = tmp_path / "slices.toml"
-    slice_file.write_text("[negation]\nkind = \"phrase-words\"\nwords = [\"not\"]\n", encoding="utf-8")
+    model, path, slice_file = _hand_model_file(tmp_path, "[negation]\nkind = \"phrase-words\"\nwords = [\"not\"]\n")
     out = tmp_path / "scores"
     result = CliRunner().invoke(app, ["evaluate", str(model), "-t", str(path), "--slices", str(slice_file),
                                       "--slice", "clash=opposite-children", "--out", str(out), "--jobs", "1",
@@ -277,11 +283,7 @@ def test_evaluate_command_prints_and_writes_slice_rows(tmp_path):
 
 
 def test_evaluate_command_refuses_bad_slices(tmp_path):
-    checkpoint, path = _hand_checkpoint(tmp_path)
-    model = tmp_path / "hand.h5"
-    save_checkpoint(model, checkpoint.params, checkpoint.vocabulary, checkpoint.config)
-    slice_file = tmp_path / "slices.toml"
-    slice_file.write_text("[negation]\nkind = \"phrase-words\"\nwords = \"not\"\n", encoding="utf-8")
+    model, path, slice_file = _hand_model_file(tmp_path, "[negation]\nkind = \"phrase-words\"\nwords = \"not\"\n")
     from rntn_engine.cli.app import main
 
     assert main(["evaluate", str(model), "-t", str(path), "--slices", str(slice_file)]) == 1
