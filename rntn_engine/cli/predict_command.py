@@ -12,7 +12,7 @@ from typing import Annotated
 import typer
 
 from rntn_engine.cli.shared_options import ProgressOption, ThreadsOption
-from rntn_engine.run.prediction import MAX_ITEM_BYTES, UNKNOWN_SHARE_WARNING
+from rntn_engine.run.prediction import MAX_INPUT_LINE_BYTES, UNKNOWN_SHARE_WARNING
 
 HDF5_SIGNATURE = b"\x89HDF\r\n\x1a\n"
 
@@ -24,7 +24,7 @@ def predict(
     input_format: Annotated[str, typer.Option("--input-format", help="auto (a line starting with '(' is a tree, any other a sentence), trees, or sentences.")] = "auto",
     output: Annotated[str, typer.Option("--output", "-o", help="Write here instead of standard output (never the input, the checkpoint or another HDF5 file).")] = "-",
     tokenize: Annotated[bool, typer.Option("--tokenize/--no-tokenize", help="Cut plain sentences into tokens by treebank conventions (punctuation split off, wasn't -> was n't, brackets escaped); --no-tokenize splits them at spaces only, for text tokenised already.")] = True,
-    max_item_bytes: Annotated[int, typer.Option("--max-item-bytes", min=64, help="Refuse a sentence line, or a tree over all its lines, longer than this many bytes (it bounds the memory of one item).")] = MAX_ITEM_BYTES,
+    max_line_bytes: Annotated[int, typer.Option("--max-line-bytes", min=64, help="Refuse an input line longer than this many bytes, and a tree spread over lines longer than 16 times it: it bounds the memory one sentence takes.")] = MAX_INPUT_LINE_BYTES,
     warn_unknown_share: Annotated[float, typer.Option("--warn-unknown-share", min=0.0, max=1.0, help="Warn when more than this share of the input's tokens are words the model does not know (1 never warns).")] = UNKNOWN_SHARE_WARNING,
     threads: ThreadsOption = 1,
     progress: ProgressOption = None,
@@ -65,9 +65,9 @@ def predict(
     if progress is None:
         progress = sys.stderr.isatty() and not (sink is sys.stdout and sys.stdout.isatty())
     bar = tqdm(unit="tree", disable=not progress, leave=False, file=sys.stderr)
-    lines = input_lines(stream, source, max_item_bytes)
+    lines = input_lines(stream, source, max_line_bytes)
     try:
-        for predicted in predict_lines(model, lines, source, input_format, summary, threads, tokenize, max_item_bytes):
+        for predicted in predict_lines(model, lines, source, input_format, summary, threads, tokenize, max_line_bytes):
             bar.update(1)
             try:
                 if output_format == "trees":

@@ -487,7 +487,9 @@ class LabelReader:
             return value
         if token[:1] == "-" and token[1:].isascii() and token[1:].isdigit():
             return f"negative label {_quote(token)}: {self.expected}"
-        return f"{self.expected}; found {_quote(token)}"
+        return (f"{self.expected}; found {_quote(token)}: a category label (as parsers write) is accepted only "
+                "for prediction (`rntn predict`, predict() in Python), which ignores labels; training and scoring "
+                "need class numbers")
 
 
 class _AnyLabel(LabelReader):

@@ -16,9 +16,9 @@ CR is a token separator like a space, and Unicode line and paragraph separators 
 their word. Input is read as bytes and decoded line by line, so a NUL byte or invalid
 UTF-8 is a one-line error at its line and column, from a file or from standard input alike.
 
-Limits: an item (a sentence line, or a tree over all its lines) longer than
-``max_item_bytes`` (default :data:`MAX_ITEM_BYTES`) is refused with a one-line error
-naming its line. An error stops the input where it is found, after every item before it
+Limits: a line longer than ``max_line_bytes`` (default :data:`MAX_INPUT_LINE_BYTES`), and a
+tree spread over lines longer than :data:`TREE_LINES_FACTOR` times that over all its lines, are
+refused with a one-line error naming the line. An error stops the input where it is found, after every item before it
 has been predicted and handed out.
 
 Fallback tree: right-branching, ``(w1 (w2 (w3 ... wn)))``. English constituency
@@ -46,12 +46,15 @@ from rntn_engine.run.checkpoints import Checkpoint
 from rntn_engine.run.evaluation import PREDICT_CHUNKS
 
 BLOCK_LINES = 256  # lines predicted together (one forward call)
-# Longest input item in bytes (a sentence line, or a tree over all its lines). Memory grows about
-# linearly with an item's words (2n-1 nodes, each with its vector and class probabilities), and the
-# JSON-lines record of a fallback tree quadratically (each node repeats its span's text); the
-# longest sentence of a treebank is a few hundred words (a few KB), so 64 KiB leaves a wide margin
-# while keeping one item's memory small (measured in README "Predicting").
-MAX_ITEM_BYTES = 64 * 1024
+# Longest input line in bytes. Memory grows with a sentence's words (2n-1 nodes, each with its vector
+# and class probabilities), and its JSON-lines record quadratically (each node of the fallback chain
+# repeats its span's text). Measured with `rntn predict` on one sentence line (README "Predicting"):
+# 16 KiB (about 3,000 words) peaks at 313 MB with --format jsonl against 194 MB for 1 KiB, while 64 KiB
+# peaks at 1.5 GB and writes 430 MB. The longest sentence of a treebank is a few hundred words (a few KB).
+MAX_INPUT_LINE_BYTES = 16 * 1024
+# A tree spread over several lines may take this many times the line limit over all its lines
+# (a pretty printer's indentation takes room; a missing ')' must not gather lines without end).
+TREE_LINES_FACTOR = 16
 # Share of unknown tokens above which `rntn predict` warns (see README "Predicting" for the choice).
 UNKNOWN_SHARE_WARNING = 0.2
 EXPECTED_INPUT = "expected UTF-8 text, a bracketed tree or a plain sentence per line"
@@ -68,14 +71,16 @@ class PredictionSummary:
     untokenised: int = 0  # items whose words still hold what treebank tokenisation splits off
     untokenised_example: tuple[int, str] | None = None  # (line, word) of the first such item
 
-    def warnings(self, unknown_share_limit: float = UNKNOWN_SHARE_WARNING) -> list[str]:
-        """The one-line warnings of a run, from its counts (none when all is well)."""
+    def warnings(self, unknown_share_limit: float = UNKNOWN_SHARE_WARNING, option: str = "--warn-unknown-share",
+                 item: str = "line") -> list[str]:
+        """The one-line warnings of a run, from its counts (none when all is well); ``option`` names the
+        setting of the limit and ``item`` what a place number counts, in their wording."""
         out = []
         if self.untokenised:
             where = ""
             if self.untokenised_example is not None:
-                line, word = self.untokenised_example
-                where = f" (line {line}: {word!r})"
+                place, word = self.untokenised_example
+                where = f" ({item} {place}: {word!r})"
             out.append(f"warning: {self.untokenised} of {self.sentences} items look untokenised{where}: "
                        "punctuation glued to a word or a clitic such as n't not split off makes words the "
                        "model does not know; give plain sentences (tokenised here) or tokenise the text "
@@ -83,18 +88,26 @@ class PredictionSummary:
         share = self.unknown_tokens / self.tokens if self.tokens else 0.0
         if share > unknown_share_limit:
             out.append(f"warning: {100 * share:.1f}% of the tokens are unknown words ({self.unknown_tokens} of "
-                       f"{self.tokens}), above the limit of {100 * unknown_share_limit:.1f}% "
-                       "(--warn-unknown-share): their phrases are labelled from the unknown-word vector; "
-                       "check the input's language, tokenisation and letter case against the training data")
+                       f"{self.tokens}), above the limit of {100 * unknown_share_limit:.1f}% ({option}): their "
+                       "phrases are labelled from the unknown-word vector; check the input's language, "
+                       "tokenisation and letter case against the training data")
         return out
 
-    def count(self, tree: Tree, unknown: list[str], fallback: bool, n_nodes: int) -> None:
+    def count(self, tree: Tree, unknown: list[str], sentence: bool, tokenized: bool, n_nodes: int, place: int) -> None:
+        """Count one predicted item: ``sentence`` for a plain sentence (``tokenized``: cut by treebank
+        conventions, so never untokenised); ``place`` is its line or item number."""
         self.sentences += 1
         self.nodes += n_nodes
         self.tokens += len(tree.words)
         self.unknown_tokens += len(unknown)
         self.unknown_types.update(unknown)
-        self.fallback_trees += int(fallback)
+        self.fallback_trees += int(sentence)
+        if not (sentence and tokenized):
+            word = untokenised_word(tree.words)
+            if word is not None:
+                self.untokenised += 1
+                if self.untokenised_example is None:
+                    self.untokenised_example = (place, word)
 
 
 @dataclass
@@ -132,23 +145,23 @@ def untokenised_word(words: list[str] | tuple[str, ...]) -> str | None:
     return words[-1]
 
 
-def input_lines(stream: BinaryIO, source: str, max_item_bytes: int = MAX_ITEM_BYTES) -> Iterator[tuple[int, str]]:
+def input_lines(stream: BinaryIO, source: str, max_line_bytes: int = MAX_INPUT_LINE_BYTES) -> Iterator[tuple[int, str]]:
     """(line number, text) of every line of a binary input, by the reader's line rule and checks."""
-    lines = TextLines(LineSource(stream), source, limit=max_item_bytes, expect=EXPECTED_INPUT,
-                      limit_hint=" (--max-item-bytes)")
+    lines = TextLines(LineSource(stream), source, limit=max_line_bytes, expect=EXPECTED_INPUT,
+                      limit_hint=" (--max-line-bytes)")
     while (text := lines.next()) is not None:
         yield lines.line_no, text
 
 
 def iter_input_items(lines: Iterable[tuple[int, str]], source: str, input_format: str, binarise: str,
-                     tokenize: bool = True, max_item_bytes: int = MAX_ITEM_BYTES) -> Iterator[tuple[Tree, int, bool]]:
+                     tokenize: bool = True, max_line_bytes: int = MAX_INPUT_LINE_BYTES) -> Iterator[tuple[Tree, int, bool]]:
     """(tree, first line, used_fallback) for every item of the input, in order.
 
     A tree may span several lines, by the rules of the treebank format (data/treebank_reader.py):
     it ends where its brackets balance, and a '(' in the first column starts a new one.
     Blank lines are skipped; so are comment lines ('#') where a tree may start, except
     in sentence input, where every non-blank line is a sentence. A tree longer than
-    ``max_item_bytes`` over its lines is refused at its first line.
+    ``TREE_LINES_FACTOR * max_line_bytes`` over its lines is refused at its first line.
     """
     records = RecordAssembler()
     record_bytes = 0
@@ -174,10 +187,11 @@ def iter_input_items(lines: Iterable[tuple[int, str]], source: str, input_format
                 record_bytes = 0
         if records.open:
             record_bytes += len(text.encode("utf-8")) + 1
-            if record_bytes > max_item_bytes:
+            if record_bytes > TREE_LINES_FACTOR * max_line_bytes:
                 first_line, first_text = records.lines[0]
-                raise TreebankError(source, f"tree longer than {max_item_bytes} bytes over its lines "
-                                    "(--max-item-bytes): expected its closing ')' sooner", first_line,
+                raise TreebankError(source, f"tree longer than {TREE_LINES_FACTOR * max_line_bytes} bytes over "
+                                    f"its lines ({TREE_LINES_FACTOR} x --max-line-bytes): expected its closing ')' "
+                                    "sooner", first_line,
                                     len(first_text) - len(first_text.lstrip(SEPARATORS)) + 1)
     done = records.finish()
     if done is not None:
@@ -186,7 +200,7 @@ def iter_input_items(lines: Iterable[tuple[int, str]], source: str, input_format
 
 def predict_lines(checkpoint: Checkpoint, lines: Iterable[tuple[int, str]], source: str, input_format: str = "auto",
                   summary: PredictionSummary | None = None, threads: int = 1, tokenize: bool = True,
-                  max_item_bytes: int = MAX_ITEM_BYTES) -> Iterator[PredictedTree]:
+                  max_line_bytes: int = MAX_INPUT_LINE_BYTES) -> Iterator[PredictedTree]:
     """Predict every node of every input item, in input order, ``BLOCK_LINES`` items per forward pass.
 
     ``lines``: (line number, text) pairs, e.g. from :func:`input_lines`. ``threads`` worker
@@ -195,7 +209,7 @@ def predict_lines(checkpoint: Checkpoint, lines: Iterable[tuple[int, str]], sour
     """
     summary = summary if summary is not None else PredictionSummary()
     objective = TreeModelObjective(checkpoint.params, threads=threads)
-    items = iter_input_items(lines, source, input_format, checkpoint.config.binarise, tokenize, max_item_bytes)
+    items = iter_input_items(lines, source, input_format, checkpoint.config.binarise, tokenize, max_line_bytes)
     block: list[tuple[Tree, int, bool]] = []
     error: InputError | None = None
     try:
@@ -229,13 +243,7 @@ def _predict_block(objective: TreeModelObjective, checkpoint: Checkpoint, block,
     for k, (tree, line_no, fallback) in enumerate(block):
         a, z = int(bank.start[k]), int(bank.start[k + 1])
         unknown = [w for w in tree.words if checkpoint.vocabulary.id_of(w) == 0]
-        summary.count(tree, unknown, fallback, z - a)
-        if not (fallback and tokenize):  # a tokenised sentence is tokenised; anything else may not be
-            word = untokenised_word(tree.words)
-            if word is not None:
-                summary.untokenised += 1
-                if summary.untokenised_example is None:
-                    summary.untokenised_example = (line_no, word)
+        summary.count(tree, unknown, fallback, tokenize, z - a, line_no)
         yield PredictedTree(tree, line_no, labels[a:z], Y[a:z], unknown, fallback)
 
 
