@@ -15,6 +15,9 @@ from rntn_engine.cli.shared_options import ProgressOption, ThreadsOption
 from rntn_engine.run.prediction import MAX_INPUT_LINE_BYTES, UNKNOWN_SHARE_WARNING
 
 HDF5_SIGNATURE = b"\x89HDF\r\n\x1a\n"
+# Characters JSON may leave raw that some line splitters (Python's str.splitlines among them) take for a
+# line end: escaped, so every JSON-lines record stays one line for any reader. JSON escapes the C0 controls.
+_LINE_BREAKS_ESCAPED = str.maketrans({"\x85": "\\u0085", "\u2028": "\\u2028", "\u2029": "\\u2029"})
 
 
 def predict(
@@ -73,7 +76,7 @@ def predict(
                 if output_format == "trees":
                     text = format_tree(predicted.tree, predicted.labels)
                 else:
-                    text = json.dumps(prediction_record(predicted), ensure_ascii=False)
+                    text = json.dumps(prediction_record(predicted), ensure_ascii=False).translate(_LINE_BREAKS_ESCAPED)
             except ValueError as exc:  # a word no tree can hold, e.g. one whose escapes would read back otherwise
                 raise InputError(source, f"cannot write this item's tree: {exc}", predicted.line, None) from None
             try:
