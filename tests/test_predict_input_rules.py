@@ -164,7 +164,7 @@ def test_a_word_no_tree_can_hold_is_a_one_line_error(model, tmp_path, capsys):
 
 
 @pytest.mark.parametrize("words", [["the", "roses", "were", "lovely"], ["the", "roses\u2028were", "lovely\u00a0day"],
-                                   ["a\u2029b", "c\u0085d", "e\x1cf"]])
+                                   ["a\u2029b", "c\u0085d", "e\x1cf\x1dg", "h\x1ei\x1fj"]])
 @pytest.mark.parametrize("separator", [" ", "\r", "\t", "\x0b", "\x0c"])
 def test_predict_and_the_tree_reader_split_lines_and_words_by_one_rule(model, tmp_path, capsys, words, separator):
     """A lone CR and the ASCII separators separate words; Unicode line, paragraph and other separators
