@@ -257,3 +257,20 @@ def test_category_labels_are_unlabelled_for_prediction_and_refused_by_training_w
     err = capsys.readouterr().err
     assert f"{bank}:1:2: expected a label" in err and "found 'S'" in err
     assert "accepted only for prediction" in err and "training and scoring need class numbers" in err
+
+
+@pytest.mark.parametrize("case", ["own-checkpoint", "hard-link-to-it", "another-checkpoint"])
+def test_export_vectors_never_writes_over_a_checkpoint(model, tmp_path, capsys, case):
+    checkpoint = tmp_path / "model.h5"
+    checkpoint.write_bytes(model.read_bytes())
+    out = {"own-checkpoint": checkpoint, "hard-link-to-it": tmp_path / "vectors.txt",
+           "another-checkpoint": tmp_path / "other.h5"}[case]
+    if case == "hard-link-to-it":
+        os.link(checkpoint, out)
+    elif case == "another-checkpoint":
+        out.write_bytes(model.read_bytes())
+    before = {p: p.read_bytes() for p in (checkpoint, out)}
+    assert main(["export-vectors", str(checkpoint), str(out)]) == 1
+    err = capsys.readouterr().err
+    assert err.startswith(f"{out}: is ") and "choose another output file" in err
+    assert {p: p.read_bytes() for p in before} == before

@@ -4,17 +4,16 @@ from __future__ import annotations
 
 import io
 import json
-import os
 import sys
 from pathlib import Path
 from typing import Annotated
 
 import typer
 
+from rntn_engine.cli.output_guard import output_conflict
 from rntn_engine.cli.shared_options import ProgressOption, ThreadsOption
 from rntn_engine.run.prediction import MAX_INPUT_LINE_BYTES, UNKNOWN_SHARE_WARNING
 
-HDF5_SIGNATURE = b"\x89HDF\r\n\x1a\n"
 # Characters JSON may leave raw that some line splitters (Python's str.splitlines among them) take for a
 # line end: escaped, so every JSON-lines record stays one line for any reader. JSON escapes the C0 controls.
 _LINE_BREAKS_ESCAPED = str.maketrans({"\x85": "\\u0085", "\u2028": "\\u2028", "\u2029": "\\u2029"})
@@ -111,36 +110,10 @@ def _stdin_bytes():
 
 
 def _refuse_output_over_inputs(output: str, input_file: str, checkpoint: Path) -> None:
-    """A usage error when the output file is the input, the checkpoint, or any HDF5 file (a checkpoint
-    elsewhere): opening it for writing would destroy it. Compared by device and inode, so a hard link,
-    a symbolic link or another spelling of the same path is refused too."""
+    """A usage error when the output file is the input, the checkpoint or any HDF5 file (cli/output_guard.py)."""
     if output == "-":
         return
-    try:
-        out = os.stat(output)
-    except OSError:
-        return  # it does not exist yet (or cannot be opened: that error comes when it is opened)
-    inputs = [("the checkpoint", str(checkpoint))]
-    if input_file != "-":
-        inputs.append(("the input", input_file))
-    for what, path in inputs:
-        try:
-            if os.path.samestat(out, os.stat(path)):
-                raise typer.BadParameter(f"{output} is {what}; choose another output file", param_hint="--output")
-        except OSError:
-            continue
-    if input_file == "-":
-        try:
-            if os.path.samestat(out, os.fstat(sys.stdin.fileno())):
-                raise typer.BadParameter(f"{output} is the input (standard input reads it); choose another "
-                                         "output file", param_hint="--output")
-        except (OSError, ValueError, io.UnsupportedOperation, AttributeError):
-            pass
-    try:
-        with open(output, "rb") as f:
-            head = f.read(len(HDF5_SIGNATURE))
-    except OSError:
-        return
-    if head == HDF5_SIGNATURE:
-        raise typer.BadParameter(f"{output} is an HDF5 file (a checkpoint?); predictions never overwrite one: "
-                                 "choose another output file", param_hint="--output")
+    inputs = [("the checkpoint", str(checkpoint))] + ([("the input", input_file)] if input_file != "-" else [])
+    reason = output_conflict(output, inputs, reads_stdin=input_file == "-")
+    if reason is not None:
+        raise typer.BadParameter(f"{output} {reason}; choose another output file", param_hint="--output")
