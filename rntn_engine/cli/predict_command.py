@@ -81,7 +81,8 @@ def predict(
             try:
                 sink.write(text + "\n")
             except OSError as exc:
-                raise InputError(output, f"cannot write the predictions: {exc.strerror or exc}") from None
+                raise InputError("<stdout>" if output == "-" else output,
+                                 f"cannot write the predictions: {exc.strerror or exc}") from None
     finally:
         bar.close()
         if input_file != "-":

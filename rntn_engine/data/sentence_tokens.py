@@ -70,6 +70,11 @@ def treebank_tokens(sentence: str) -> list[str]:
     text = _CLITIC.sub(r" \1", text)
     text = _POSSESSIVE.sub(" '", text)
     text = _FUSED.sub(_split_fused, text)
+    return split_at_separators(text)
+
+
+def split_at_separators(text: str) -> list[str]:
+    """The pieces of ``text`` between separators (the treebank format's, and line breaks): no other rule."""
     return [t for t in _SPLIT.split(text) if t]
 
 

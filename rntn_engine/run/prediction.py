@@ -18,8 +18,8 @@ UTF-8 is a one-line error at its line and column, from a file or from standard i
 
 Limits: a line longer than ``max_line_bytes`` (default :data:`MAX_INPUT_LINE_BYTES`), and a
 tree spread over lines longer than :data:`TREE_LINES_FACTOR` times that over all its lines, are
-refused with a one-line error naming the line. An error stops the input where it is found, after every item before it
-has been predicted and handed out.
+refused with a one-line error naming the line. An error stops the input where it is found,
+after every item before it has been predicted and handed out.
 
 Fallback tree: right-branching, ``(w1 (w2 (w3 ... wn)))``. English constituency
 structure is predominantly right-branching (heads before complements), so this
@@ -38,7 +38,7 @@ import numpy as np
 from rntn_engine.data.batches import encode_treebank
 from rntn_engine.data.bracket_tokens import SEPARATORS, unescape_token
 from rntn_engine.data.errors import InputError, TreebankError
-from rntn_engine.data.sentence_tokens import escape_brackets, looks_untokenised, sentence_words, treebank_tokens
+from rntn_engine.data.sentence_tokens import escape_brackets, sentence_words, split_at_separators, treebank_tokens
 from rntn_engine.data.tree import Tree, right_branching_tree
 from rntn_engine.data.treebank_reader import LineSource, RecordAssembler, TextLines, parse_record
 from rntn_engine.model.objective import TreeModelObjective, split_into_chunks
@@ -48,14 +48,14 @@ from rntn_engine.run.evaluation import PREDICT_CHUNKS
 BLOCK_LINES = 256  # lines predicted together (one forward call)
 # Longest input line in bytes. Memory grows with a sentence's words (2n-1 nodes, each with its vector
 # and class probabilities), and its JSON-lines record quadratically (each node of the fallback chain
-# repeats its span's text). Measured with `rntn predict` on one sentence line (README "Predicting"):
+# repeats its span's text). Measured with `rntn predict` on one sentence line (README, `rntn predict`):
 # 16 KiB (about 3,000 words) peaks at 313 MB with --format jsonl against 194 MB for 1 KiB, while 64 KiB
-# peaks at 1.5 GB and writes 430 MB. The longest sentence of a treebank is a few hundred words (a few KB).
+# peaks at 1.6 GB and writes 430 MB. The longest sentence of a treebank is a few hundred words (a few KB).
 MAX_INPUT_LINE_BYTES = 16 * 1024
 # A tree spread over several lines may take this many times the line limit over all its lines
 # (a pretty printer's indentation takes room; a missing ')' must not gather lines without end).
 TREE_LINES_FACTOR = 16
-# Share of unknown tokens above which `rntn predict` warns (see README "Predicting" for the choice).
+# Share of unknown tokens above which `rntn predict` warns (README, `rntn predict`, explains the choice).
 UNKNOWN_SHARE_WARNING = 0.2
 EXPECTED_INPUT = "expected UTF-8 text, a bracketed tree or a plain sentence per line"
 
@@ -123,24 +123,19 @@ class PredictedTree:
 def sentence_tree(body: str, source: str, line: int, tokenize: bool = True) -> Tree:
     """The fallback tree of a plain sentence: cut by treebank conventions, or (``tokenize=False``)
     split on the separators only; escapes undone either way."""
-    words = sentence_words(body) if tokenize else [unescape_token(t) for t in _split_on_separators(body)]
+    words = sentence_words(body) if tokenize else [unescape_token(t) for t in split_at_separators(body)]
     return right_branching_tree(words, f"{source}:{line}")
 
 
-def _split_on_separators(text: str) -> list[str]:
-    return [t for t in text.translate(_SEPARATOR_TO_SPACE).split(" ") if t]
-
-
-_SEPARATOR_TO_SPACE = str.maketrans({c: " " for c in SEPARATORS})
-
-
 def untokenised_word(words: list[str] | tuple[str, ...]) -> str | None:
-    """The first word that treebank tokenisation would cut (e.g. ``queue.``), or None when none would be."""
-    if not looks_untokenised(words):
+    """The first word that treebank tokenisation would cut (e.g. ``queue.``), or None when none would be
+    (the test of data/sentence_tokens.py looks_untokenised, with the word that fails it)."""
+    escaped = [escape_brackets(w) for w in words]
+    tokens = treebank_tokens(" ".join(escaped))
+    if tokens == escaped:
         return None
-    tokens = treebank_tokens(" ".join(escape_brackets(w) for w in words))
-    for word, token in zip(words, tokens):
-        if escape_brackets(word) != token:
+    for word, token, token_of_word in zip(words, tokens, escaped):
+        if token_of_word != token:
             return word
     return words[-1]
 
