@@ -25,7 +25,7 @@ def predict(
     output_format: Annotated[str, typer.Option("--format", help="trees: bracketed trees with predicted labels; jsonl: per sentence, every node's span text, label and class probabilities.")] = "trees",
     input_format: Annotated[str, typer.Option("--input-format", help="auto (a line starting with '(' is a tree, any other a sentence), trees, or sentences.")] = "auto",
     output: Annotated[str, typer.Option("--output", "-o", help="Write here instead of standard output (never the input, the checkpoint or another HDF5 file).")] = "-",
-    tokenize: Annotated[bool, typer.Option("--tokenize/--no-tokenize", help="Cut plain sentences into tokens by treebank conventions (punctuation split off, wasn't -> was n't, brackets escaped); --no-tokenize splits them at spaces only, for text tokenised already.")] = True,
+    tokenize: Annotated[bool, typer.Option("--tokenize/--no-tokenize", help="Cut plain sentences into tokens by treebank conventions (punctuation split off, wasn't -> was n't, brackets escaped); --no-tokenize splits them only at spaces, tabs and lone CRs, for text tokenised already.")] = True,
     max_line_bytes: Annotated[int, typer.Option("--max-line-bytes", min=64, help="Refuse an input line longer than this many bytes, and a tree spread over lines longer than 16 times it: it bounds the memory one sentence takes.")] = MAX_INPUT_LINE_BYTES,
     warn_unknown_share: Annotated[float, typer.Option("--warn-unknown-share", min=0.0, max=1.0, help="Warn when more than this share of the input's tokens are words the model does not know (1 never warns).")] = UNKNOWN_SHARE_WARNING,
     threads: ThreadsOption = 1,
