@@ -78,7 +78,6 @@ def worker(args) -> None:
     from rntn_engine.data.batches import encode_treebank
     from rntn_engine.data.treebank_reader import read_trees
     from rntn_engine.data.vocabulary import build_vocabulary
-    from rntn_engine.kernels.tree_compose import add_symmetric_layout_gradient
     from rntn_engine.model.adagrad import AdaGrad
     from rntn_engine.model.objective import TreeModelObjective, split_into_chunks
     from rntn_engine.model.parameters import Gradient, ModelShape, init_parameters
@@ -118,10 +117,10 @@ def worker(args) -> None:
         reduce_times, step_times = [], []
         for _ in range(20):
             t0 = time.perf_counter()
-            for own in chunk_grads:
+            for own in chunk_grads:  # the dense part of the reduction (model/objective.py, loss_and_gradient)
                 for name, g in own.views.items():
                     grads[name] += g
-                add_symmetric_layout_gradient(grads.V, own.tensor)
+                objective.model.add_layout_gradient(grads, own.layout)
             reduce_times.append((time.perf_counter() - t0) / len(chunk_grads))
             t0 = time.perf_counter()
             optimiser.step_with_l2(params, grads, objective.l2)

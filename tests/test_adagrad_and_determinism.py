@@ -5,6 +5,7 @@ import pytest
 
 from random_trees import engine_case
 
+from rntn_engine.model.model_registry import MODELS
 from rntn_engine.model.adagrad import AdaGrad
 from rntn_engine.model.objective import TreeModelObjective
 from rntn_engine.model.parameters import Gradient, ModelShape, Parameters
@@ -50,7 +51,7 @@ def test_adagrad_frozen_group_is_not_updated():
     assert np.all(params.L == 1.0) and np.all(params.W < 1.0)
 
 
-@pytest.mark.parametrize("model", ["rnn", "rntn", "mvrnn"])
+@pytest.mark.parametrize("model", MODELS)
 @pytest.mark.parametrize("dtype", ["float32", "float64"])
 def test_gradient_bits_do_not_depend_on_thread_count(model, dtype):
     results = []

@@ -9,6 +9,8 @@ import subprocess
 import sys
 from pathlib import Path
 
+from rntn_engine.model.model_registry import MODELS
+
 PROBE = """
 import numpy as np
 from numba.core.runtime import rtsys
@@ -37,7 +39,7 @@ def run_probe(model):
 
 
 def test_allocations_do_not_grow_with_nodes_or_levels():
-    for model in ("rnn", "rntn", "mvrnn"):
+    for model in MODELS:
         counts = run_probe(model)
         nodes = [c[0] for c in counts]
         assert nodes[0] < nodes[1] < nodes[2], counts

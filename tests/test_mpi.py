@@ -15,6 +15,7 @@ import numpy as np
 import pytest
 
 from demo_slices import DEMO, write_demo_slices
+from rntn_engine.model.model_registry import MODELS
 from rntn_engine.cli.app import main
 from rntn_engine.run.checkpoints import load_checkpoint
 from rntn_engine.run.run_directory import list_checkpoints
@@ -56,7 +57,7 @@ def final(run_dir):
     return c.params.flat, c.adagrad_sums.flat
 
 
-SETTINGS = [(m, t) for m in ("rnn", "rntn", "mvrnn") for t in ("float32", "float64")]
+SETTINGS = [(m, t) for m in MODELS for t in ("float32", "float64")]
 ALL_COMMANDS_ON_TWO_RANKS = """
 import contextlib, os, sys
 from mpi4py import MPI
@@ -72,15 +73,17 @@ for args, stdout_path in {commands!r}:
 
 
 def evaluate_cases(data, root):
-    """(name, evaluate arguments): several checkpoints on two treebanks (divided by checkpoint), and one
-    checkpoint of each dtype on a treebank of 3000 trees (three prediction batches, divided by batch)."""
+    """(name, evaluate arguments), with the demo's slices: several checkpoints on two treebanks (divided by
+    checkpoint), and one checkpoint of each dtype on a treebank of 3000 trees (two pieces of whole
+    prediction batches, 2048 and 952 trees, divided over the ranks)."""
     big = DEMO / "garden_train.trees"  # 3000 trees
+    slices = ["--slices", str(DEMO / "garden_slices.toml")]
     several = ["evaluate", str(root / "two-rntn-float64"), "-t", str(data / "dev.trees"), "-t",
-               str(data / "train.trees"), "--no-progress"]
+               str(data / "train.trees"), "--no-progress", *slices]
     cases = [("several", several)]
     for model, dtype in (("rntn", "float64"), ("mvrnn", "float32")):
         cases.append((f"one-{model}-{dtype}", ["evaluate", str(root / f"two-{model}-{dtype}" / "model.h5"), "-t", str(big),
-                                               "-t", str(data / "dev.trees"), "--no-progress"]))
+                                               "-t", str(data / "dev.trees"), "--no-progress", *slices]))
     return cases
 
 

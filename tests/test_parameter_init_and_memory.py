@@ -107,3 +107,20 @@ def test_l2_in_blocks_equals_one_pass_and_a_step_allocates_nothing_vocabulary_si
         assert np.array_equal(grads.rows[name].values, one_pass.rows[name].values)
     assert loss == pytest.approx(loss_one_pass, rel=1e-14)  # only the summation order of the penalty differs
     assert peak < params.LM.nbytes / 8, f"a step allocated {peak} bytes; LM has {params.LM.nbytes}"
+
+
+def test_memory_estimate_adds_the_minibatchs_activations():
+    from rntn_engine.model.parameters import largest_minibatch
+
+    # trees of 7, 3, 9, 1 nodes, batches of 2: the largest is 9 + 7 = 16 nodes, (16 - 2) / 2 = 7 internal
+    assert largest_minibatch(np.array([7, 3, 9, 1]), 2) == (16, 7)
+    assert largest_minibatch(np.array([7, 3]), 5) == (10, 4)
+    shape = ModelShape("mvrnn", 50, 6, 5, "float64")
+    alone = check_memory(shape, 0)
+    # counted by hand for the MV-RNN at d = 6, D = 12, N = 16, M = 7, float64:
+    #   forward  N (d + d^2) + M (D + d + d D + d^2) = 16 * 42 + 7 * 126 = 1554
+    #   backward N (d + d^2) + M (d + D + d^2 + d D) = 1554
+    with_batch = check_memory(shape, 0, minibatch=(16, 7))
+    assert with_batch - alone == (1554 + 1554) * 8
+    with pytest.raises(MemoryLimitError, match="activations"):
+        check_memory(shape, alone + 8, minibatch=(16, 7))

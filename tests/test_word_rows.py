@@ -15,6 +15,7 @@ from random_trees import engine_case
 from test_gradients_independent import autograd_reference, group_relative_error
 from test_mvrnn_gradients import autograd_mv_reference
 
+from rntn_engine.model.model_registry import MODELS
 from rntn_engine.model.adagrad import AdaGrad
 from rntn_engine.model.gradient_check import finite_difference_errors
 from rntn_engine.model.objective import L2Strengths, TreeModelObjective, split_into_chunks
@@ -43,7 +44,7 @@ def random_anchor(params, seed=9):
     return {"L": np.random.default_rng(seed).uniform(-0.3, 0.3, params.L.shape).astype(params.flat.dtype)}
 
 
-@pytest.mark.parametrize("model", ["rnn", "rntn", "mvrnn"])
+@pytest.mark.parametrize("model", MODELS)
 @pytest.mark.parametrize("toward", ["zero", "start"])
 def test_word_row_gradient_matches_central_finite_differences(model, toward):
     params, bank, _, _, _ = case(model)
@@ -55,7 +56,7 @@ def test_word_row_gradient_matches_central_finite_differences(model, toward):
         assert err < 1e-6, f"{model} {name}: relative error {err:.2e}"
 
 
-@pytest.mark.parametrize("model", ["rnn", "rntn", "mvrnn"])
+@pytest.mark.parametrize("model", MODELS)
 @pytest.mark.parametrize("toward", ["zero", "start"])
 def test_word_row_gradient_matches_autograd_library(model, toward):
     params, bank, _, _, _ = case(model, seed=3)
@@ -89,7 +90,7 @@ def test_the_word_term_counts_each_word_once_and_skips_absent_words():
     assert with_words - without == pytest.approx(expected, rel=1e-12)
 
 
-@pytest.mark.parametrize("model", ["rnn", "rntn", "mvrnn"])
+@pytest.mark.parametrize("model", MODELS)
 @pytest.mark.parametrize("dtype", ["float32", "float64"])
 @pytest.mark.parametrize("toward", ["zero", "start"])
 def test_sparse_step_touches_only_minibatch_rows_and_equals_the_unfused_path(model, dtype, toward):

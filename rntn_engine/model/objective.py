@@ -2,7 +2,7 @@
 
 For a minibatch of B trees whose leaves hold the set of distinct words U:
 
-    J = (1/B) * sum over labelled nodes of -log y[t]
+    J = (1/B) * sum over labelled nodes of -w[t] log y[t]      (w: class weights, all 1 by default)
         + sum over dense groups g of (lambda_g / 2) * ||theta_g||^2
         + (lambda_words / 2) * sum over w in U of ||L[w] - A[w]||^2
         + (lambda_word_matrices / 2) * sum over w in U of ||LM[w]||^2          (MV-RNN)
@@ -35,9 +35,10 @@ dense gradients (W, b, WM, Ws, bs, the tensor's layout); the word rows (dL, dLM)
 scattered from each chunk's node errors into the minibatch's touched rows (ascending
 word ids), in chunk order.
 
-Models: "rnn" and "rntn" run kernels/tree_compose.py, "mvrnn" runs
-kernels/compose_matrix_vector.py; the classifier (kernels/node_classifier.py) and
-everything else here is shared.
+Models: the composition (forward and backward up the trees, the word arrays' node errors,
+per-step preparation such as the RNTN's tensor layout) is the model specification's
+(model_spec.py, one module per model); the classifier (kernels/node_classifier.py) and
+everything else here is shared by every model.
 """
 
 from __future__ import annotations
@@ -50,37 +51,30 @@ import scipy.linalg.cython_blas  # noqa: F401  the BLAS numba's np.dot calls: lo
 from threadpoolctl import threadpool_limits
 
 from rntn_engine.data.batches import EncodedTreebank, FlatBatch, make_batch
-from rntn_engine.kernels.compose_matrix_vector import backward_compose_mv, forward_compose_mv
-from rntn_engine.kernels.node_classifier import backward_classify, forward_classify
 from rntn_engine.kernels.adagrad_step import word_rows_l2
-from rntn_engine.kernels.tree_compose import (
-    add_symmetric_layout_gradient,
-    backward_compose,
-    forward_compose,
-    symmetric_tensor_layout,
-)
+from rntn_engine.kernels.node_classifier import backward_classify, forward_classify
 from rntn_engine.kernels.word_rows import add_word_rows, scatter_word_rows, touched_rows
-from rntn_engine.model.parameters import L2_GROUP, WORD_ROW_NAMES, Gradient, Parameters, WordRows
+from rntn_engine.model.model_registry import model_spec
+from rntn_engine.model.model_spec import Activations
+from rntn_engine.model.parameters import L2_GROUP, L2_GROUPS, WORD_ROW_NAMES, Gradient, Parameters, WordRows
 
 
 @dataclass(frozen=True)
 class L2Strengths:
-    """lambda per L2 group (see model/parameters.py for which parameter is in which group)."""
+    """lambda per L2 group: one field per entry of model/parameters.py's L2_GROUPS (a test checks),
+    defaulting to the group's default; which parameter is in which group, PARAMETERS says."""
 
-    words: float = 1e-4  # word vectors L
-    compose: float = 1e-3  # composition matrix W
-    tensor: float = 1e-3  # composition tensor V
-    classifier: float = 1e-4  # classifier weights Ws
-    word_matrices: float = 1e-4  # word matrices LM (MV-RNN; its WM is in the compose group)
+    words: float = L2_GROUPS["words"].default  # word vectors L
+    compose: float = L2_GROUPS["compose"].default  # composition matrix W (and WM of the MV-RNN)
+    tensor: float = L2_GROUPS["tensor"].default  # composition tensor V
+    classifier: float = L2_GROUPS["classifier"].default  # classifier weights Ws
+    word_matrices: float = L2_GROUPS["word_matrices"].default  # word matrices LM (MV-RNN)
 
     def of(self, group: str | None) -> float:
         return 0.0 if group is None else float(getattr(self, group))
 
 
-FORWARD_Q_ROWS = 512  # forward-only passes compute the tensor term in blocks of this many nodes
 L2_BLOCK = 1 << 22  # elements per pass of a dense group's L2 term: its float64 copies stay at 32 MiB
-# arrays with their own path to the minibatch gradient: word rows scattered from node errors, V from its layout
-_NOT_PER_CHUNK = ("L", "LM", "V")
 
 
 def split_into_chunks(bank: EncodedTreebank, tree_ids: np.ndarray, chunks: int) -> list[FlatBatch]:
@@ -95,42 +89,27 @@ def split_into_chunks(bank: EncodedTreebank, tree_ids: np.ndarray, chunks: int) 
     return [make_batch(bank, tree_ids[a:z]) for a, z in zip(bounds[:-1], bounds[1:]) if z > a]
 
 
-class _Workspace:
-    """Grow-only scratch arrays for one chunk, so steady-state steps allocate nothing per node."""
-
-    def __init__(self, dtype: np.dtype) -> None:
-        self.dtype = dtype
-        self.buffers: dict[str, np.ndarray] = {}
-
-    def get(self, name: str, rows: int, cols: int) -> np.ndarray:
-        buf = self.buffers.get(name)
-        if buf is None or buf.shape[0] < rows or buf.shape[1] != cols:
-            buf = np.empty((max(rows, 16), cols), dtype=self.dtype)
-            self.buffers[name] = buf
-        return buf[:rows]
-
-
 class ChunkGradient:
     """One chunk's share of a minibatch's loss and gradient, summed inside the chunk: what a worker thread
     hands to the reduction, and what MPI ranks exchange (:meth:`pack`, :meth:`unpack`).
 
-    flat    the chunk's dense gradients (W, b, WM, Ws, bs, as it has them), then the tensor's layout
-            gradient (RNTN), in one buffer with named views
+    flat    the chunk's dense gradients (W, b, WM, Ws, bs, as it has them), then the model's layout
+            gradient (the RNTN's tensor), in one buffer with named views
     rows    the word arrays' gradient at the chunk's distinct words (L, and LM of the MV-RNN)
     loss    the chunk's share of the data term
     """
 
-    def __init__(self, params: Parameters, dense_names: list[str], tensor_shape: tuple[int, ...]) -> None:
+    def __init__(self, params: Parameters, dense_names: list[str], layout_shape: tuple[int, ...]) -> None:
         dtype = params.flat.dtype
         sizes = {name: params[name].size for name in dense_names}
-        tensor_size = int(np.prod(tensor_shape))
-        self.flat = np.zeros(sum(sizes.values()) + tensor_size, dtype=dtype)
+        layout_size = int(np.prod(layout_shape))
+        self.flat = np.zeros(sum(sizes.values()) + layout_size, dtype=dtype)
         self.views: dict[str, np.ndarray] = {}
         offset = 0
         for name in dense_names:
             self.views[name] = self.flat[offset : offset + sizes[name]].reshape(params[name].shape)
             offset += sizes[name]
-        self.tensor = self.flat[offset:].reshape(tensor_shape)  # (0, 0) when the model has no tensor
+        self.layout = self.flat[offset:].reshape(layout_shape)  # (0, 0) when the model has no layout gradient
         self.rows = {name: WordRows(int(np.prod(params[name].shape[1:])), dtype)
                      for name in params.names() if name in WORD_ROW_NAMES}
         self.loss = 0.0
@@ -179,25 +158,28 @@ class TreeModelObjective:
     """Loss, gradient and class probabilities of the RNN / RNTN / MV-RNN over flattened batches."""
 
     def __init__(self, params: Parameters, l2: L2Strengths | None = None, threads: int = 1,
-                 anchors: dict[str, np.ndarray] | None = None) -> None:
+                 anchors: dict[str, np.ndarray] | None = None, class_weights: np.ndarray | None = None) -> None:
         self.shape = params.shape
+        self.model = model_spec(self.shape.model)(self.shape)  # the composition: model_spec.py
+        # (C,) the weight of each gold class in the training loss (run/class_weights.py); prediction and
+        # the forward-only scores (forward, forward_chunks) always use the plain cross-entropy (ones)
+        self._ones = np.ones(self.shape.num_classes, dtype=np.float64)
+        self.class_weights = self._ones if class_weights is None else np.asarray(class_weights, dtype=np.float64)
         # word array name -> the values its L2 term pulls toward (absent: toward zero)
         self.anchors = dict(anchors or {})
-        self.use_tensor = self.shape.model == "rntn"
-        self.use_matrices = self.shape.model == "mvrnn"
         self.l2 = l2 or L2Strengths()
         self.threads = max(1, int(threads))
         self._dtype = params.flat.dtype
-        self._workspaces: list[_Workspace] = []
-        # per chunk: name -> its own gradient sum of each small dense array (see module docstring)
-        self._chunk_names = [name for name in params.names() if name not in _NOT_PER_CHUNK]
+        self._activations: list[Activations] = []  # one set of buffers per chunk
+        # per chunk: its own gradient sum of each small dense array (see module docstring); the word
+        # rows are scattered from node errors, and a layout-reduced array (the RNTN's V) from its layout
+        self._chunk_names = [name for name in params.names()
+                             if name not in WORD_ROW_NAMES and name not in self.model.reduced_from_layout]
         self._chunk_grads: list[ChunkGradient] = []
         self._pool = ThreadPoolExecutor(self.threads) if self.threads > 1 else None
         # Parallelism comes from chunks on our own threads; BLAS inside them runs single-threaded
         # (nested BLAS threads on top of ours ran many times slower when measured).
         self._blas_limit = threadpool_limits(limits=1, user_api="blas")
-        d = self.shape.dim
-        self._Vsym = np.zeros((2 * d, d * 2 * d) if self.use_tensor else (0, 0), dtype=self._dtype)
 
     def close(self) -> None:
         if self._blas_limit is not None:
@@ -209,59 +191,29 @@ class TreeModelObjective:
 
     # --- one chunk: forward (and backward) with the serial kernels -------------------------------
 
-    def _slot(self, k: int) -> _Workspace:
-        while len(self._workspaces) <= k:
-            self._workspaces.append(_Workspace(self._dtype))
-        return self._workspaces[k]
+    def _slot(self, k: int) -> Activations:
+        while len(self._activations) <= k:
+            self._activations.append(self.model.new_activations())
+        return self._activations[k]
 
-    def _forward_chunk(self, params: Parameters, batch: FlatBatch, ws: _Workspace, scale: float,
-                       keep_for_backward: bool = True):
-        """(loss, P, Y) of one chunk; the backward pass finds the rest in ``ws`` under the same names."""
-        d, C = self.shape.dim, self.shape.num_classes
-        N, M, D = batch.n_nodes, batch.n_internal, 2 * d
-        P = ws.get("P", N, d)  # (N, d) node vectors
-        X = ws.get("X", M, D)  # (M, D) children of each internal node ([B a ; A b] for the MV-RNN)
-        Z = ws.get("Z", M, d)  # (M, d) pre-activations
-        if self.use_matrices:
-            PM = ws.get("PM", N, d * d).reshape(N, d, d)  # (N, d, d) node matrices
-            ABt = ws.get("ABt", M * d, D)  # (M*d, D) children's matrices, stacked transposed
-            PMt = ws.get("PMt", M * d, d)  # (M*d, d) a level's P^T
-            forward_compose_mv(P, PM, X, Z, ABt, PMt, params.L, params.LM, params.W, params.b, params.WM,
-                               batch.word, batch.left, batch.right, batch.order, batch.level_start)
-        else:
-            # (M, d*D) kept for the backward pass; forward only: a block of rows reused level by level
-            rows = M if keep_for_backward else min(M, FORWARD_Q_ROWS)
-            Q = ws.get("Q", rows if self.use_tensor else 0, d * D if self.use_tensor else 0)
-            forward_compose(P, X, Z, Q, params.L, params.W, params.b, self._Vsym,
-                            batch.word, batch.left, batch.right, batch.order, batch.level_start, self.use_tensor)
-        Y = ws.get("Y", N, C)  # (N, C) class probabilities
-        S = ws.get("S", N, C)  # (N, C) class scores
-        loss = forward_classify(Y, S, P, params.Ws, params.bs, batch.label, scale)
-        return loss, P, Y
+    def _forward_chunk(self, params: Parameters, batch: FlatBatch, acts: Activations, scale: float,
+                       keep_for_backward: bool = True, weights: np.ndarray | None = None) -> float:
+        """The chunk's share of the data term; P, Y (and what backward needs) are left in ``acts``.
+        ``weights``: the class weights of the loss (default: the training weights)."""
+        N, C = batch.n_nodes, self.shape.num_classes
+        self.model.forward(params, batch, acts, keep_for_backward)
+        acts.resize({"Y": (N, C), "S": (N, C)})
+        weights = self.class_weights if weights is None else weights
+        return forward_classify(acts.Y, acts.S, acts.P, params.Ws, params.bs, batch.label, weights, scale)
 
-    def _gradient_chunk(self, params: Parameters, grads: dict[str, np.ndarray], dVsym: np.ndarray,
-                        batch: FlatBatch, ws: _Workspace, scale: float) -> float:
-        d, C = self.shape.dim, self.shape.num_classes
-        N, M, D = batch.n_nodes, batch.n_internal, 2 * d
-        loss, P, Y = self._forward_chunk(params, batch, ws, scale)
-        X = ws.get("X", M, D)  # from the forward pass
-        E = ws.get("E", N, d)  # (N, d) error reaching each node vector
-        dS = ws.get("dS", N, C)  # (N, C) softmax error
-        Delta = ws.get("Delta", M, d)  # (M, d) error at pre-activations
-        EX = ws.get("EX", M, D)  # (M, D) error reaching x
-        backward_classify(grads["Ws"], grads["bs"], E, dS, Y, P, params.Ws, batch.label, scale)
-        if self.use_matrices:
-            PM = ws.get("PM", N, d * d).reshape(N, d, d)  # from the forward pass
-            ABt = ws.get("ABt", M * d, D)  # from the forward pass
-            EM = ws.get("EM", N, d * d).reshape(N, d, d)  # (N, d, d) error reaching each node matrix
-            EPt = ws.get("EPt", M * d, d)  # (M*d, d) EP^T per internal node
-            EABt = ws.get("EABt", M * d, D)  # (M*d, D) a level's (WM^T EP)^T
-            backward_compose_mv(grads["W"], grads["b"], grads["WM"], E, EM, Delta, EX, EPt, EABt, P, PM, X, ABt,
-                                params.W, params.WM, batch.left, batch.right, batch.order, batch.level_start)
-        else:
-            Q = ws.get("Q", M if self.use_tensor else 0, d * D if self.use_tensor else 0)
-            backward_compose(grads["W"], grads["b"], dVsym, E, Delta, EX, P, X, Q, params.W,
-                             batch.left, batch.right, batch.order, batch.level_start, self.use_tensor)
+    def _gradient_chunk(self, params: Parameters, grads: dict[str, np.ndarray], layout_grad: np.ndarray,
+                        batch: FlatBatch, acts: Activations, scale: float) -> float:
+        N, C = batch.n_nodes, self.shape.num_classes
+        loss = self._forward_chunk(params, batch, acts, scale)
+        acts.resize({"E": (N, self.shape.dim), "dS": (N, C)})
+        backward_classify(grads["Ws"], grads["bs"], acts.E, acts.dS, acts.Y, acts.P, params.Ws, batch.label,
+                          self.class_weights, scale)
+        self.model.backward(params, grads, layout_grad, batch, acts)
         return loss
 
     # --- public --------------------------------------------------------------------------------------
@@ -278,25 +230,23 @@ class TreeModelObjective:
         """
         n_trees = sum(c.n_trees for c in chunks)
         scale = 1.0 / n_trees
-        if self.use_tensor:
-            symmetric_tensor_layout(self._Vsym, params.V)
+        self.model.prepare(params)
         while len(self._chunk_grads) < len(chunks):
-            self._chunk_grads.append(ChunkGradient(params, self._chunk_names, self._Vsym.shape))
+            self._chunk_grads.append(ChunkGradient(params, self._chunk_names, self.model.layout_gradient_shape()))
         ranks, rank = (group.size, group.rank) if group is not None else (1, 0)
         mine = [k for k in range(len(chunks)) if k % ranks == rank]
 
         def run(k: int) -> None:
             own, batch = self._chunk_grads[k], chunks[k]
             own.flat[:] = 0  # this chunk's own sums start from zero
-            ws = self._slot(k)
-            own.loss = self._gradient_chunk(params, own.views, own.tensor, batch, ws, scale)
+            acts = self._slot(k)
+            own.loss = self._gradient_chunk(params, own.views, own.layout, batch, acts, scale)
             leaf_words = batch.word[batch.leaves]
             rows = touched_rows([leaf_words])
             slot = np.searchsorted(rows, leaf_words)  # each leaf's row among the chunk's rows
-            for name, word_rows in own.rows.items():
-                word_rows.reset(rows)
-                errors = ws.buffers["E"] if name == "L" else ws.buffers["EM"]  # dLM[w] += EM[leaf], d*d numbers
-                scatter_word_rows(word_rows.values, errors.reshape(errors.shape[0], -1), slot, batch.leaves)
+            for name, errors in self.model.word_errors(acts).items():  # (N, width): a leaf's row is dL[w]
+                own.rows[name].reset(rows)
+                scatter_word_rows(own.rows[name].values, errors, slot, batch.leaves)
 
         if self._pool is not None and len(mine) > 1:
             list(self._pool.map(run, mine))
@@ -330,8 +280,7 @@ class TreeModelObjective:
             loss += own.loss
             for name, g in own.views.items():
                 grads[name] += g
-            if self.use_tensor:
-                add_symmetric_layout_gradient(grads.V, own.tensor)
+            self.model.add_layout_gradient(grads, own.layout)
             for name, word_rows in own.rows.items():
                 add_word_rows(grads.rows[name].values, np.searchsorted(rows, word_rows.rows), word_rows.values)
         return loss + self.add_l2(params, grads, rows) if include_l2 else loss
@@ -371,10 +320,10 @@ class TreeModelObjective:
 
         With ``copy=False`` P and Y are views of workspaces, valid until the next call.
         """
-        if self.use_tensor:
-            symmetric_tensor_layout(self._Vsym, params.V)
-        loss, P, Y = self._forward_chunk(params, batch, self._slot(0), 1.0, keep_for_backward=False)
-        return (loss, P.copy(), Y.copy()) if copy else (loss, P, Y)
+        self.model.prepare(params)
+        acts = self._slot(0)
+        loss = self._forward_chunk(params, batch, acts, 1.0, keep_for_backward=False, weights=self._ones)
+        return (loss, acts.P.copy(), acts.Y.copy()) if copy else (loss, acts.P, acts.Y)
 
     def forward_chunks(self, params: Parameters, chunks: list[FlatBatch]) -> list[tuple[float, np.ndarray]]:
         """Forward only over several chunks, on the worker threads when there are any.
@@ -382,12 +331,12 @@ class TreeModelObjective:
         Returns (cross-entropy sum, Y view) per chunk; the views stay valid until the next call.
         The chunks, not the threads, decide the arithmetic, so results do not depend on ``threads``.
         """
-        if self.use_tensor:
-            symmetric_tensor_layout(self._Vsym, params.V)
+        self.model.prepare(params)
 
         def run(k: int):
-            loss, _, Y = self._forward_chunk(params, chunks[k], self._slot(k), 1.0, keep_for_backward=False)
-            return loss, Y
+            acts = self._slot(k)
+            loss = self._forward_chunk(params, chunks[k], acts, 1.0, keep_for_backward=False, weights=self._ones)
+            return loss, acts.Y
 
         if self._pool is not None and len(chunks) > 1:
             return list(self._pool.map(run, range(len(chunks))))
@@ -396,9 +345,8 @@ class TreeModelObjective:
     def loss(self, params: Parameters, chunks: list[FlatBatch]) -> float:
         """J of the minibatch without the gradient (the forward-only twin of loss_and_gradient)."""
         n_trees = sum(c.n_trees for c in chunks)
-        if self.use_tensor:
-            symmetric_tensor_layout(self._Vsym, params.V)
+        self.model.prepare(params)
         total = 0.0
         for k, batch in enumerate(chunks):
-            total += self._forward_chunk(params, batch, self._slot(k), 1.0 / n_trees)[0]
+            total += self._forward_chunk(params, batch, self._slot(k), 1.0 / n_trees)
         return total + self.add_l2(params, None, touched_rows([c.word[c.leaves] for c in chunks]))

@@ -5,9 +5,9 @@ Legend: |V| vocabulary size, d vector size, D = 2d, C classes.
 Every parameter is declared once, in :data:`PARAMETERS` (a :class:`ParameterSpec`): its
 math symbol (used in the code and the docstrings), the name of its dataset in checkpoint
 files, its shape, its L2 group, whether it has one row per vocabulary word, and a
-description. Which parameters a model has, in which order, is :data:`MODEL_PARAMETERS`.
-Everything else (L2 strengths, checkpoint layout and descriptions, the memory estimate)
-is derived from these.
+description. Which parameters a model has, in which order, its specification says
+(model_spec.py; one module per model, listed in model_registry.py). Everything else (L2
+strengths, checkpoint layout and descriptions, the memory estimate) is derived from these.
 
     symbol  stored as                  shape        L2 group
     L       word_vectors               (|V|, d)     words          row 0 = unknown word
@@ -35,11 +35,10 @@ Initialisation (seeded, documented in README):
     LM[w] = I + U(-0.01, 0.01) elementwise      (near the identity: x = [B a ; A b] starts as [a ; b])
     WM ~ 0.5 [I I] + U(-r, r),  r = 1/sqrt(D)   (like W: a node's matrix starts near the children's average)
     b, bs = 0
-The draws come from one generator in this order: L, W, V (RNTN), Ws, then LM (word by
-word, row order) and WM (MV-RNN). The MV-RNN's arrays are drawn after all the others,
-so the arrays the models share (L, W, Ws) are identical for one seed. The MV-RNN's
-publication starts the word matrices at the identity plus small noise (from memory);
-the width 0.01 is our choice.
+The draws come from one generator, in the order each model's specification states: L, W,
+V (RNTN), Ws, then LM (word by word, row order) and WM (MV-RNN). The MV-RNN's arrays are
+drawn after all the others, so the arrays the models share (L, W, Ws) are identical for one
+seed (mvrnn_model.py says where the word matrices' start comes from).
 
 Memory: an MV-RNN holds |V| d^2 numbers in LM alone (100,000 words at d = 25 are 62.5
 million per copy; training keeps two full copies, parameters and AdaGrad sums).
@@ -52,6 +51,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+
+from rntn_engine.model.model_registry import MODEL_SPECS, MODELS, model_spec  # noqa: F401  MODELS: re-exported
 
 DTYPES = {"float32": np.float32, "float64": np.float64}
 
@@ -89,26 +90,35 @@ PARAMETERS = {spec.symbol: spec for spec in (
     ParameterSpec("bs", "classifier_bias", "C", None, False, "classifier bias bs, C"),
 )}
 
-# the parameters of each model, in the order of the flat buffer
-MODEL_PARAMETERS = {
-    "rnn": ("L", "W", "b", "Ws", "bs"),
-    "rntn": ("L", "W", "b", "V", "Ws", "bs"),
-    "mvrnn": ("L", "W", "b", "LM", "WM", "Ws", "bs"),
-}
-MODELS = tuple(MODEL_PARAMETERS)
+@dataclass(frozen=True)
+class L2Group:
+    """One L2 strength: the parameters whose ParameterSpec.l2_group names it share it."""
+
+    name: str
+    default: float  # chosen by our defaults sweep (README, "How the defaults were chosen")
+    help: str
+
+
+L2_GROUPS = {group.name: group for group in (
+    L2Group("words", 1e-5, "L2 strength on word vectors (rows of the minibatch's words)."),
+    L2Group("compose", 1e-4, "L2 strength on the composition matrix W (and WM of the mvrnn)."),
+    L2Group("tensor", 1e-4, "L2 strength on the composition tensor V."),
+    L2Group("classifier", 1e-4, "L2 strength on the classifier weights."),
+    L2Group("word_matrices", 1e-3, "L2 strength on the word matrices (mvrnn)."),
+)}
+
+# the parameters of each model, in the order of the flat buffer (each model's specification says)
+MODEL_PARAMETERS = {name: spec.parameters for name, spec in MODEL_SPECS.items()}
 
 # which L2 group regularises each parameter (None: not regularised), and the word arrays
 L2_GROUP = {symbol: spec.l2_group for symbol, spec in PARAMETERS.items()}
 WORD_ROW_NAMES = tuple(symbol for symbol, spec in PARAMETERS.items() if spec.word_rows)
 
-WORD_MATRIX_NOISE = 0.01  # LM[w] = I + U(-WORD_MATRIX_NOISE, WORD_MATRIX_NOISE) at initialisation
-
 
 def parameter_shapes(model: str, vocab_size: int, dim: int, num_classes: int) -> dict[str, tuple[int, ...]]:
-    """Ordered name -> shape of every parameter array of ``model``."""
-    if model not in MODEL_PARAMETERS:
-        raise ValueError(f"unknown model {model!r}: expected one of {', '.join(MODELS)}")
-    return {symbol: PARAMETERS[symbol].shape(vocab_size, dim, num_classes) for symbol in MODEL_PARAMETERS[model]}
+    """Ordered name -> shape of every parameter array of ``model`` (ValueError naming the choices if unknown)."""
+    return {symbol: PARAMETERS[symbol].shape(vocab_size, dim, num_classes)
+            for symbol in model_spec(model).parameters}
 
 
 @dataclass(frozen=True)
@@ -275,24 +285,9 @@ class Gradient:
 
 
 def init_parameters(shape: ModelShape, rng: np.random.Generator) -> Parameters:
-    """Random initial parameters, drawn in a fixed order from ``rng`` (see module docstring)."""
+    """Random initial parameters, drawn from ``rng`` in the order the model's specification states."""
     params = Parameters(shape)
-    d, D, C = shape.dim, 2 * shape.dim, shape.num_classes
-    dtype = params.flat.dtype
-    params.L[:] = rng.uniform(-0.1, 0.1, size=params.L.shape).astype(dtype)
-    r = 1.0 / np.sqrt(D)
-    params.W[:] = (0.5 * np.hstack([np.eye(d), np.eye(d)]) + rng.uniform(-r, r, size=(d, D))).astype(dtype)
-    if "V" in params.views:
-        params.V[:] = rng.uniform(-1.0 / D, 1.0 / D, size=(d, D, D)).astype(dtype)
-    s = np.sqrt(6.0 / (C + d))
-    params.Ws[:] = rng.uniform(-s, s, size=(C, d)).astype(dtype)
-    if "LM" in params.views:  # drawn after every draw of the RNN and RNTN, which therefore stay as they were
-        rows = max(1, (1 << 20) // (d * d))  # words per draw: the float64 temporaries stay near 8 MiB
-        for a in range(0, shape.vocab_size, rows):
-            z = min(a + rows, shape.vocab_size)
-            noise = rng.uniform(-WORD_MATRIX_NOISE, WORD_MATRIX_NOISE, size=(z - a, d, d))
-            params.LM[a:z] = np.eye(d) + noise  # computed in float64, rounded once to the parameter dtype
-        params.WM[:] = (0.5 * np.hstack([np.eye(d), np.eye(d)]) + rng.uniform(-r, r, size=(d, D))).astype(dtype)
+    model_spec(shape.model)(shape).initialise(params, rng)
     return params
 
 
@@ -305,15 +300,28 @@ def format_bytes(n: float) -> str:
     return f"{n / 2**30:.2f} GiB" if n >= 2**30 else f"{n / 2**20:.1f} MiB"
 
 
-def check_memory(shape: ModelShape, limit_bytes: float, anchored_words: bool = False) -> int:
+def largest_minibatch(tree_nodes: np.ndarray, batch_size: int) -> tuple[int, int]:
+    """(nodes, internal nodes) of the largest possible minibatch of binary trees with these node counts."""
+    k = min(batch_size, tree_nodes.shape[0])
+    if k == 0:
+        return 0, 0
+    nodes = int(np.partition(tree_nodes, tree_nodes.shape[0] - k)[-k:].sum())
+    return nodes, (nodes - k) // 2  # a binary tree of n nodes has (n - 1) / 2 internal ones
+
+
+def check_memory(shape: ModelShape, limit_bytes: float, anchored_words: bool = False,
+                 minibatch: tuple[int, int] = (0, 0)) -> int:
     """The estimated training memory of ``shape`` in bytes; MemoryLimitError if above ``limit_bytes``.
 
     The estimate is :meth:`ModelShape.training_bytes`: parameters + AdaGrad sums + the gradient's
-    dense part (+ the starting word vectors when ``anchored_words``); the objective's per-chunk
-    workspaces and the minibatch's word rows, a few MiB for usual batches, are not counted.
+    dense part (+ the starting word vectors when ``anchored_words``), plus the composition's
+    activation buffers for a minibatch of ``minibatch`` = (nodes, internal nodes), as the model's
+    specification counts them (activation_numbers; the chunks of a minibatch hold its nodes once
+    between them). The minibatch's word rows and the classifier's buffers, small, are not counted.
     ``limit_bytes <= 0`` means no limit.
     """
-    need = shape.training_bytes(anchored_words)
+    activations = model_spec(shape.model)(shape).activation_numbers(*minibatch) if minibatch[0] else 0
+    need = shape.training_bytes(anchored_words) + activations * np.dtype(DTYPES[shape.dtype]).itemsize
     if limit_bytes <= 0 or need <= limit_bytes:
         return need
     shapes = shape.shapes()
@@ -321,7 +329,7 @@ def check_memory(shape: ModelShape, limit_bytes: float, anchored_words: bool = F
     share = int(np.prod(shapes[largest])) / shape.count()
     raise MemoryLimitError(
         f"{shape.model} with d={shape.dim} and a vocabulary of {shape.vocab_size:,} words needs about "
-        f"{format_bytes(need)} for parameters, AdaGrad sums and gradient ({shape.count():,} {shape.dtype} "
+        f"{format_bytes(need)} for parameters, AdaGrad sums, gradient and activations ({shape.count():,} {shape.dtype} "
         f"parameters, {share:.0%} of them in {largest} {shapes[largest]}), above the limit of "
         f"{format_bytes(limit_bytes)}: raise --min-count for a smaller vocabulary, lower --dim, "
         f"or raise the limit with --max-memory-gb")

@@ -30,7 +30,8 @@ if sys.version_info >= (3, 11):
 else:  # pragma: no cover
     import tomli as tomllib
 
-from rntn_engine.model.parameters import DTYPES, MODELS
+from rntn_engine.model.parameters import DTYPES, L2_GROUPS, MODELS
+from rntn_engine.run.class_weights import class_weights_problem
 from rntn_engine.run.stop_signals import parse_duration
 
 # dev scores a run can select its best checkpoint by; all higher-is-better but those in LOWER_IS_BETTER
@@ -90,15 +91,22 @@ class TrainConfig:
     batch_size: int = setting(16, "Trees per minibatch.", "result", minimum=1)
     lr: float = setting(0.02, "AdaGrad learning rate.", "result", above=0.0)
     adagrad_eps: float = setting(1e-6, "AdaGrad epsilon in lr * g / (sqrt(G) + eps).", "result", above=0.0)
-    l2_words: float = setting(1e-5, "L2 strength on word vectors (rows of the minibatch's words).", "result",
+    l2_words: float = setting(L2_GROUPS["words"].default, L2_GROUPS["words"].help, "result",
                               minimum=0.0)
     l2_words_toward: str = setting("zero", "What L2 on word vectors pulls toward: zero, or start (each vector's "
                                    "starting value, e.g. its pretrained one).", "result", choices=L2_WORDS_TOWARD)
-    l2_compose: float = setting(1e-4, "L2 strength on the composition matrix W (and WM of the mvrnn).", "result",
+    l2_compose: float = setting(L2_GROUPS["compose"].default, L2_GROUPS["compose"].help, "result",
                                 minimum=0.0)
-    l2_tensor: float = setting(1e-4, "L2 strength on the composition tensor V.", "result", minimum=0.0)
-    l2_classifier: float = setting(1e-4, "L2 strength on the classifier weights.", "result", minimum=0.0)
-    l2_word_matrices: float = setting(1e-3, "L2 strength on the word matrices (mvrnn).", "result", minimum=0.0)
+    l2_tensor: float = setting(L2_GROUPS["tensor"].default, L2_GROUPS["tensor"].help, "result",
+                               minimum=0.0)
+    l2_classifier: float = setting(L2_GROUPS["classifier"].default, L2_GROUPS["classifier"].help, "result",
+                                   minimum=0.0)
+    class_weights: str = setting("none", "Weights of the classes in the training cross-entropy: none (all 1), "
+                                 "balanced (n / (C * n_c) from the training nodes' labels: rare classes weigh "
+                                 "more), or one number per class separated by commas; resolved once and stored "
+                                 "with the run.", "result")
+    l2_word_matrices: float = setting(L2_GROUPS["word_matrices"].default, L2_GROUPS["word_matrices"].help, "result",
+                                      minimum=0.0)
     max_memory_gb: float = setting(8.0, "Refuse a model whose parameters, AdaGrad sums and gradient need more GiB "
                                    "(0: no limit).", "run", minimum=0.0, resume=True)
     min_count: int = setting(2, "Training count a word needs for a vector of its own; rarer words share the "
@@ -158,6 +166,9 @@ class TrainConfig:
         if self.class_names and (len(set(self.names_of_classes())) != self.num_classes
                                  or not all(self.names_of_classes())):
             raise ConfigError("--class-names: every class needs a name of its own (a name is repeated or empty)")
+        problem = class_weights_problem(self.class_weights, self.num_classes)
+        if problem:
+            raise ConfigError(problem)
         if (self.extend_vocabulary or self.freeze_vectors) and not self.vectors_file:
             raise ConfigError("--extend-vocabulary and --freeze-vectors need --vectors")
         return self

@@ -40,12 +40,14 @@ from rntn_engine.data.vocabulary import Vocabulary, vocabulary_from_counts
 from rntn_engine.model.adagrad import AdaGrad
 from rntn_engine.model.objective import L2Strengths, TreeModelObjective, split_into_chunks
 from rntn_engine.model.parameters import (
+    L2_GROUPS,
     Gradient,
     MemoryLimitError,
     ModelShape,
     Parameters,
     check_memory,
     init_parameters,
+    largest_minibatch,
 )
 from rntn_engine.run.checkpoints import Checkpoint, load_checkpoint, newest_valid_checkpoint, save_checkpoint
 from rntn_engine.run.evaluation import TreebankPredictions, predict_treebank
@@ -81,6 +83,7 @@ from rntn_engine.run.pretrained_start import extend_with_vector_words, initial_w
 from rntn_engine.run.process_group import PeerStopped, SingleProcess
 from rntn_engine.run.run_errors import RunDirectoryError, TrainingError
 from rntn_engine.run.run_state import RunState
+from rntn_engine.run.class_weights import resolve_class_weights
 from rntn_engine.run.scores import LabelScheme, accuracy, binary_accuracy, confusion_matrix, macro_f1, majority_class
 from rntn_engine.run.stop_signals import EXIT_STOPPED_RESUMABLE, StopRequest, parse_duration
 
@@ -362,7 +365,8 @@ class Trainer:
         bank = data.train
         shape = ModelShape(config.model, len(data.vocabulary), config.dim, config.num_classes, config.dtype)
         try:
-            check_memory(shape, config.max_memory_gb * 2**30, anchored_words=config.l2_words_toward == "start")
+            minibatch = largest_minibatch(np.diff(bank.start), config.batch_size)
+            check_memory(shape, config.max_memory_gb * 2**30, config.l2_words_toward == "start", minibatch)
         except MemoryLimitError as exc:
             raise TrainingError(str(exc)) from None
         frozen = ("L",) if config.freeze_vectors else ()
@@ -389,9 +393,14 @@ class Trainer:
         self.write_run_file(METRICS_FILE, lambda: rewrite_metrics_log(self.run_dir, history))
 
         grads = Gradient(shape)
-        l2 = L2Strengths(words=config.l2_words, compose=config.l2_compose, tensor=config.l2_tensor,
-                         classifier=config.l2_classifier, word_matrices=config.l2_word_matrices)
-        objective = TreeModelObjective(params, l2, threads=config.threads, anchors=self.anchors)
+        l2 = L2Strengths(**{group: getattr(config, f"l2_{group}") for group in L2_GROUPS})
+        if checkpoint is None and config.class_weights != "none":
+            state.class_weights = resolve_class_weights(config.class_weights, bank.label, config.num_classes).tolist()
+        weights = np.array(state.class_weights, dtype=np.float64) if state.class_weights else None
+        if weights is not None and weights.shape != (config.num_classes,):
+            raise TrainingError(f"the run state holds {weights.size} class weights for {config.num_classes} classes")
+        objective = TreeModelObjective(params, l2, threads=config.threads, anchors=self.anchors,
+                                       class_weights=weights)
         steps_per_epoch = -(-bank.n_trees // config.batch_size)
         stop = self.stop
         stop.set_time_limit(parse_duration(config.time_limit) if config.time_limit else 0.0)
@@ -402,6 +411,10 @@ class Trainer:
                   f"({shape.training_bytes() / 2**20:.1f} MiB with gradient and AdaGrad state), {where}")
         if data.dev is not None and checkpoint is None:
             self.echo(majority_baseline_line(bank, data.dev))
+        if weights is not None and checkpoint is None:
+            names = config.names_of_classes()
+            self.echo(f"class weights ({config.class_weights if config.class_weights == 'balanced' else 'given'}): "
+                      + ", ".join(f"{names[c]} {w:.4g}" for c, w in enumerate(weights)))
         if checkpoint is None:  # step 0: a resume never starts from nothing
             self.on_root(lambda: list_checkpoints(self.run_dir) or self._save(
                 self.run_dir / checkpoint_name(0), params, optimiser, state, history, data))
@@ -711,4 +724,6 @@ def format_epoch_line(record: dict) -> str:
     line = f"epoch {record['epoch']:>3}  step {record['step']:>7}  train loss {record['train_loss']:.4f}"
     if "dev_fine_all" in record:
         line += f"  dev fine all-nodes {record['dev_fine_all']:.4f}  root {record['dev_fine_root']:.4f}"
+        if "dev_macro_f1_all" in record:
+            line += f"  macro-F1 all-nodes {record['dev_macro_f1_all']:.4f}  root {record['dev_macro_f1_root']:.4f}"
     return line + f"  ({record['wall_seconds']:.1f} s)"
