@@ -123,10 +123,16 @@ def run_in_workers(function: TaskFunction, tasks: list[Any], jobs: int,
             wanted = min(jobs, len(waiting) + sum(w.task is not None for w in workers))
             while len(workers) < wanted:
                 workers.append(_Worker(context, function))
-            for worker in workers:
+            for worker in list(workers):
                 if worker.task is None and waiting:
                     index = waiting.pop()
-                    worker.give(index, tasks[index])
+                    try:
+                        worker.give(index, tasks[index])
+                    except OSError:  # it died while idle: the task waits for a new worker
+                        waiting.append(index)
+                        worker.task = None
+                        worker.end(0.0)
+                        workers.remove(worker)
             busy = [w for w in workers if w.task is not None]
             ready = wait([w.connection for w in busy] + [w.process.sentinel for w in busy], timeout=0.25)
             for worker in busy:
