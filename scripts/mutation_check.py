@@ -231,6 +231,17 @@ MUTATIONS = [
              "ok = not err > threshold",
              "rntn gradcheck passes a NaN error",
              ("tests/test_cli_gradcheck.py",)),
+    # --- evaluation over workers and ranks -------------------------------------------------------------
+    Mutation("worker-exception-escapes", "rntn_engine/run/checkpoint_evaluation.py",
+             "except Exception as exc:  # the row's error, as from a worker process",
+             "except InputError as exc:  # the row's error, as from a worker process",
+             "an exception while scoring a checkpoint ends evaluate with a traceback",
+             ("tests/test_evaluate_faults.py",)),
+    Mutation("mpi-pieces-out-of-order", "rntn_engine/run/distributed_evaluation.py",
+             "key=lambda p: p[0])",
+             "key=lambda p: -p[0])",
+             "the ranks' losses are summed in another order than one process's",
+             ("tests/test_mpi.py",)),
 ]
 
 def copy_repository(target: Path) -> None:
