@@ -7,6 +7,7 @@ import json
 import os
 import subprocess
 import sys
+import threading
 from pathlib import Path
 
 import pytest
@@ -274,3 +275,26 @@ def test_export_vectors_never_writes_over_a_checkpoint(model, tmp_path, capsys, 
     err = capsys.readouterr().err
     assert err.startswith(f"{out}: is ") and "choose another output file" in err
     assert {p: p.read_bytes() for p in before} == before
+
+
+def test_a_reader_that_stops_early_ends_the_command_quietly(model):
+    # `rntn predict ... | head -1`: once the pipe's reader has gone, the command stops with exit 0
+    # and says nothing (what command-line filters do; common practice, no source)
+    data = b"the rose garden was lovely .\n" * 20000  # far more output than a pipe buffer holds
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    proc = subprocess.Popen([sys.executable, "-m", "rntn_engine.cli.app", "predict", str(model), "-", "--no-progress"],
+                            stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env)
+
+    def feed():
+        try:
+            proc.stdin.write(data)
+            proc.stdin.close()
+        except BrokenPipeError:  # the command stopped before reading all of it: expected here
+            pass
+
+    threading.Thread(target=feed, daemon=True).start()
+    first = proc.stdout.readline()
+    proc.stdout.close()  # the reader goes away
+    err = proc.stderr.read()
+    assert proc.wait(timeout=120) == 0, err
+    assert first.startswith(b"(") and err == b""

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import io
 import json
+import os
 import sys
 from pathlib import Path
 from typing import Annotated
@@ -80,6 +81,13 @@ def predict(
                 raise InputError(source, f"cannot write this item's tree: {exc}", predicted.line, None) from None
             try:
                 sink.write(text + "\n")
+            except BrokenPipeError:
+                if output != "-":
+                    raise
+                # the reader of our standard output went away (e.g. `| head -1`): stop quietly, as
+                # command-line filters do; later flushes go to /dev/null instead of failing again
+                os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+                raise typer.Exit(0) from None
             except OSError as exc:
                 raise InputError("<stdout>" if output == "-" else output,
                                  f"cannot write the predictions: {exc.strerror or exc}") from None
