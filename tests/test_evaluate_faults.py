@@ -128,3 +128,14 @@ def test_sigterm_to_evaluate_ends_its_workers_and_exits_75(small_run, tmp_path):
     finally:  # a failed run leaves nothing behind either
         for pid in processes_with(marker):
             os.kill(pid, signal.SIGKILL)
+
+
+def test_sigterm_to_evaluate_without_workers_exits_75_and_writes_nothing(small_run, tmp_path):
+    root, run_dir, checkpoints = small_run
+    out = tmp_path / "scores"
+    # -j 1 scores in the command's own process: the signal arrives as it starts the second checkpoint
+    done = subprocess.run(RNTN + evaluate_args(root, run_dir, out, jobs="1"), capture_output=True, text=True,
+                          env=fault_env(f"evaluate:{checkpoints[1].name}", "term"), timeout=300)
+    assert done.returncode == 75, done.stderr
+    assert "rntn: evaluate stopped by SIGTERM" in done.stderr and "Traceback" not in done.stderr
+    assert done.stdout == "" and not (tmp_path / "scores.json").exists()
