@@ -14,7 +14,8 @@ the training loop's own calls (``loss_and_gradient(..., group)`` then
                    chunk's gradient in chunk order, the AdaGrad step
 
 Also per rank: compute's CPU seconds per wall second (cpu/wall; below 1.0 the rank waited for a
-core that other processes held). The speed-up is (seconds per step on 1 rank) / (seconds per step on 2 ranks), both medians
+core that other processes held), and the speed-up over only the 2-rank launches whose ranks all
+had their cores (cpu/wall >= 0.9), beside the speed-up of the medians. The speed-up is (seconds per step on 1 rank) / (seconds per step on 2 ranks), both medians
 over rounds, measured in the same run. Besides, once on 1 rank: the bytes one chunk's
 gradient takes in the exchange, the seconds to add one chunk gradient in the reduction, and
 the seconds of one AdaGrad step: the numbers the README's scaling model rests on
@@ -229,12 +230,19 @@ def main() -> None:
               f"{1e3 * row['communication']:7.2f} {1e3 * row['idle']:7.2f} {row['trees_per_s']:8.1f} "
               f"{row.get('speed_up', float('nan')):8.2f} {row['compute_cpu_per_wall']:8.2f} "
               f"{row['load_min']:4.1f}-{row['load_max']:<4.1f}")
+    for row in summary["rows"]:
+        if row["ranks"] == 2:
+            print(f"batch {row['batch_size']}: speed-up over the {row['free_core_launches']} 2-rank launch(es) in "
+                  f"which both ranks had their cores (cpu/wall >= {FREE_CORE}): {row['speed_up_free_cores']:.2f}")
     parts = summary["parts"]
     print(f"one chunk's gradient in the exchange: {parts['chunk_message_bytes']} bytes; adding one chunk "
           f"gradient: {1e3 * parts['reduce_one_chunk_s']:.3f} ms; one AdaGrad step: "
           f"{1e3 * parts['adagrad_step_s']:.3f} ms; pack one chunk {1e3 * parts['pack_one_chunk_s']:.3f} ms, "
           f"unpack one {1e3 * parts['unpack_one_chunk_s']:.3f} ms; compute per tree on 1 rank (batch "
           f"{parts['batch_size']}): {1e3 * parts['compute_per_tree_s']:.3f} ms")
+
+
+FREE_CORE = 0.9  # compute's CPU seconds per wall second above which a rank counts as having had its core
 
 
 def summarise(records: list[dict], args) -> dict:
@@ -250,6 +258,11 @@ def summarise(records: list[dict], args) -> dict:
                          "load_max": max(r["load_1min_before"] for r in mine)})
         one, two = rows[-2], rows[-1]
         two["speed_up"] = one["wall"] / two["wall"]
+        # the same, over the 2-rank launches in which every rank had its core (compute cpu/wall >= 0.9)
+        free = [r["seconds_per_step"]["wall"] for r in records if r["batch_size"] == batch and r["ranks"] == 2
+                and r["compute_cpu_per_wall"] >= FREE_CORE]
+        two["free_core_launches"] = len(free)
+        two["speed_up_free_cores"] = one["wall"] / statistics.median(free) if free else float("nan")
     single = [r for r in records if r["ranks"] == 1]
     largest = max(args.batch_sizes)
     big = [r for r in single if r["batch_size"] == largest]

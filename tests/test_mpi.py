@@ -198,3 +198,17 @@ def test_a_rank_that_reads_other_data_stops_the_job_naming_it(data, tmp_path):
     assert done.returncode == 1, done.stderr
     assert "rank 1 sees a different content of the data files" in done.stderr
     assert done.stderr.count("rntn: error") == 1
+
+
+def test_a_data_file_missing_on_one_rank_stops_the_job_with_its_error(data, tmp_path):
+    elsewhere = tmp_path / "elsewhere"  # this rank's working directory has no train.trees
+    elsewhere.mkdir()
+    shutil.copy(data / "train.trees", tmp_path / "train.trees")
+    args = ["train", "--train-file", "train.trees", "--dim", "3", "--epochs", "1", "--run-dir", str(tmp_path / "run"),
+            "--no-progress", "--mpi"]
+    done = subprocess.run([MPIEXEC, "-n", "1", "-wdir", str(tmp_path), *RNTN, *args, ":",
+                           "-n", "1", "-wdir", str(elsewhere), *RNTN, *args], capture_output=True, text=True,
+                          timeout=120)  # before the fix the ranks waited for each other until killed
+    assert done.returncode == 1, done.stderr
+    assert f"{elsewhere / 'train.trees'}: cannot read the run's data file" in done.stderr
+    assert "Traceback" not in done.stderr and not (tmp_path / "run").exists()  # the failed start is cleaned up

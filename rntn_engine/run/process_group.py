@@ -77,6 +77,22 @@ class SingleProcess:
                 raise ProcessGroupError(f"rank {rank} sees a different {what} than rank 0 ({json.loads(text)} "
                                         f"against {json.loads(texts[0])}): every rank needs the same files")
 
+    def all_now(self, action: Callable[[], T]) -> T:
+        """Run ``action`` on every rank; if it fails on any rank, every rank raises (a failing rank its own
+        error, the others :class:`PeerStopped`), so no rank is left waiting in a later exchange (a data
+        file missing on one node, say)."""
+        error: BaseException | None = None
+        result = None
+        try:
+            result = action()
+        except Exception as exc:  # re-raised below, after every rank knows
+            error = exc
+        if self.any_true(error is not None):
+            if error is not None:
+                raise error
+            raise PeerStopped(1)
+        return result
+
     def root_now(self, action: Callable[[], T]) -> T | None:
         """Run ``action`` on rank 0 only, now; if it fails, every rank raises (rank 0 its own error)."""
         error: BaseException | None = None

@@ -358,7 +358,8 @@ class Trainer:
         # --- restore: data, parameters, optimiser, position -- all at this one point --------------------------
         # rank 0 alone keeps the encoded-treebank cache in the run directory; other ranks read the text
         cache_dir = self.run_dir / TREEBANK_CACHE_DIR if self.group.is_root else None
-        data = load_training_data(config, checkpoint.vocabulary if checkpoint else None, cache_dir=cache_dir)
+        data = self.group.all_now(lambda: load_training_data(config, checkpoint.vocabulary if checkpoint else None,
+                                                             cache_dir=cache_dir))
         self.group.same_on_all(data.hashes, "content of the data files (SHA-256)")
         if self.fault:
             self.fault("data_loaded")
@@ -681,7 +682,7 @@ def resume_training(run_dir: Path, overrides: dict, echo: Callable[[str], None] 
             resolve_data_paths(config, tuple(moved))
             config.validate()
             if checkpoint is not None:
-                hashes = data_file_hashes(config, run_dir)
+                hashes = group.all_now(lambda: data_file_hashes(config, run_dir))
                 group.same_on_all(hashes, "content of the data files (SHA-256)")
                 changed = [k for k, v in hashes.items() if checkpoint.data_hashes.get(k) != v]
                 if changed and not allow_changed_data:
