@@ -95,18 +95,7 @@ class SingleProcess:
 
     def root_now(self, action: Callable[[], T]) -> T | None:
         """Run ``action`` on rank 0 only, now; if it fails, every rank raises (rank 0 its own error)."""
-        error: BaseException | None = None
-        result = None
-        if self.is_root:
-            try:
-                result = action()
-            except Exception as exc:  # re-raised below, on every rank
-                error = exc
-        if self.any_true(error is not None):
-            if error is not None:
-                raise error
-            raise PeerStopped(1)
-        return result
+        return self.all_now(action if self.is_root else lambda: None)
 
 
 class MpiRanks(SingleProcess):
