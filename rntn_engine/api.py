@@ -14,8 +14,12 @@ The names here are re-exported by the package (``import rntn_engine as rn``)::
 An item to label is a bracketed tree (any labels in it are ignored: class numbers, ``_``,
 or a parser's categories; it may span several lines) or a plain sentence, which is cut
 into tokens by treebank conventions (data/sentence_tokens.py) and given a right-branching
-tree, as ``rntn predict`` does. Labels are the same as ``rntn predict`` and ``rntn
-evaluate`` give, for any number of threads.
+tree, as ``rntn predict`` does (``tokenize=False``: split at the separators only). Lines and
+tokens follow the treebank reader's one rule (a lone CR separates tokens; Unicode line and
+paragraph separators belong to their word). Labels are the same as ``rntn predict`` and ``rntn
+evaluate`` give, for any number of threads. :meth:`TreeModel.predict` warns (Python's
+``warnings``, once per call, with counts) as ``rntn predict`` does when items look untokenised or
+more than ``warn_unknown_share`` of their tokens are unknown words.
 
 Training from Python: :func:`train` and :func:`resume` take the settings of ``rntn train``
 as keyword arguments (or a :class:`TrainConfig`) and return a :class:`TrainingRun`. They
@@ -28,6 +32,7 @@ restored when the call returns.
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable, Iterable, Sequence
@@ -35,14 +40,15 @@ from typing import Callable, Iterable, Sequence
 import numpy as np
 
 from rntn_engine.data.batches import encode_treebank, make_batch
-from rntn_engine.data.sentence_tokens import treebank_tokens
-from rntn_engine.data.tree import Tree, right_branching_tree
+from rntn_engine.data.bracket_tokens import SEPARATORS
+from rntn_engine.data.tree import Tree
 from rntn_engine.data.treebank_reader import parse_tree
 from rntn_engine.data.treebank_writer import format_tree
 from rntn_engine.model.objective import TreeModelObjective, split_into_chunks
 from rntn_engine.run.checkpoint_evaluation import EvaluationRow, evaluate_many, expand_checkpoint_specs, mark_best
 from rntn_engine.run.checkpoints import Checkpoint, load_checkpoint
 from rntn_engine.run.evaluation import PREDICT_CHUNKS
+from rntn_engine.run.prediction import UNKNOWN_SHARE_WARNING, PredictionSummary, sentence_tree
 from rntn_engine.run.run_config import TrainConfig, config_from_mapping
 from rntn_engine.run.run_directory import MODEL_FILE, list_checkpoints
 from rntn_engine.run.stop_signals import StopRequest
@@ -126,21 +132,27 @@ class TreeModel:
         for k, item in enumerate(items):
             if isinstance(item, Tree):
                 trees.append(item)
-            elif item.lstrip().startswith("("):
-                text = " ".join(item.split())  # a tree over several lines: its line breaks are spaces
+            elif _is_tree_text(item):
+                text = " ".join(item.split("\n"))  # a tree over several lines: its line breaks are spaces
                 trees.append(parse_tree(text, path="<item>", line=k + 1, binarise=self.config.binarise,
                                         ignore_labels=True))
             else:
-                words = treebank_tokens(item) if tokenize else item.split()
-                if not words:
+                body = item.replace("\n", " ").strip(SEPARATORS)
+                if not body:
                     raise ValueError(f"item {k + 1} is empty: expected a bracketed tree or a sentence")
-                trees.append(right_branching_tree(words, f"<item>:{k + 1}"))
+                trees.append(sentence_tree(body, "<item>", k + 1, tokenize))
         return trees
 
-    def predict(self, items: Sequence[str | Tree], tokenize: bool = True) -> list[PhraseLabels]:
-        """Label every phrase of every item (bracketed trees or plain sentences)."""
+    def predict(self, items: Sequence[str | Tree], tokenize: bool = True,
+                warn_unknown_share: float = UNKNOWN_SHARE_WARNING) -> list[PhraseLabels]:
+        """Label every phrase of every item (bracketed trees or plain sentences).
+
+        Warns (``UserWarning``, once per call, with counts) when items look untokenised or more than
+        ``warn_unknown_share`` of the tokens are unknown words, as ``rntn predict`` does.
+        """
         objective = self._open_objective()
         results: list[PhraseLabels] = []
+        summary = PredictionSummary()
         for a in range(0, len(items), BLOCK_ITEMS):
             block = list(items[a : a + BLOCK_ITEMS])
             trees = self.trees(block, tokenize)
@@ -150,9 +162,12 @@ class TreeModel:
             for k, tree in enumerate(trees):
                 lo, hi = int(bank.start[k]), int(bank.start[k + 1])
                 unknown = [w for w in tree.words if self.checkpoint.vocabulary.id_of(w) == 0]
-                from_sentence = not isinstance(block[k], Tree) and not block[k].lstrip().startswith("(")
+                from_sentence = not isinstance(block[k], Tree) and not _is_tree_text(block[k])
+                summary.count(tree, unknown, from_sentence, tokenize, hi - lo, a + k + 1)
                 results.append(PhraseLabels(tree, np.argmax(Y[lo:hi], axis=1).astype(np.int32), Y[lo:hi].copy(),
                                             from_sentence, unknown))
+        for line in summary.warnings(warn_unknown_share, option="warn_unknown_share", item="item"):
+            warnings.warn(line.removeprefix("warning: "), stacklevel=2)
         return results
 
     def encode(self, items: Sequence[str | Tree], all_nodes: bool = False,
@@ -179,6 +194,10 @@ class TreeModel:
         if self._objective is None:
             raise ValueError(f"the model {self.path} is closed")
         return self._objective
+
+
+def _is_tree_text(item: str) -> bool:
+    return item.lstrip(SEPARATORS + "\n").startswith("(")
 
 
 def load_model(path: str | Path, threads: int = 1) -> TreeModel:
@@ -241,12 +260,17 @@ def resume(run_dir: str | Path, *, stop: StopRequest | None = None, echo: Callab
 
 
 def evaluate(checkpoints: Sequence[str | Path], treebanks: Sequence[str | Path], jobs: int = 1,
-             best_by: str = "fine_root", neutral_class: int | None = -1) -> list[EvaluationRow]:
+             best_by: str = "fine_root", neutral_class: int | None = -1,
+             slices: Sequence[str] = (), slice_files: Sequence[str | Path] = ()) -> list[EvaluationRow]:
     """Score checkpoints (files, glob patterns, run directories) on treebanks: the rows of ``rntn evaluate``,
     with the best row of each treebank marked. ``neutral_class``: -1 the default for the number of
-    classes, None for no neutral class."""
+    classes, None for no neutral class. ``slices`` (``"NAME=KIND[:VALUE]"`` as ``--slice``) and
+    ``slice_files`` add a row per slice after each treebank's row (``row.slice`` names it)."""
+    from rntn_engine.run.slice_definitions import read_slice_file, slice_from_option
+
+    definitions = [s for f in slice_files for s in read_slice_file(f)] + [slice_from_option(s) for s in slices]
     paths = expand_checkpoint_specs([str(c) for c in checkpoints])
-    rows = evaluate_many(paths, [str(t) for t in treebanks], jobs, neutral_class)
+    rows = evaluate_many(paths, [str(t) for t in treebanks], jobs, neutral_class, slices=tuple(definitions))
     mark_best(rows, best_by)
     return rows
 

@@ -200,6 +200,8 @@ PERTURBATIONS = {
     "state.finished": (set_state("finished", True), schedule, "stopped", ()),
     # on the finished run (early stopping): "all epochs done" lets --epochs 12 train on
     "state.finish_reason": (set_state("finish_reason", "all epochs done"), schedule, "finished", ("--epochs", "12")),
+    # the resolved class weights (empty: all 1) are the resume's weights, not the setting
+    "state.class_weights": (set_state("class_weights", [1.0, 3.0, 1.0, 1.0, 1.0]), train_losses, "stopped", ()),
     # decides no number of training; the later records' wall_seconds count from it
     "state.training_seconds": (set_state("training_seconds", lambda s: s + 1000.0), wall_clock, "stopped", ()),
 }

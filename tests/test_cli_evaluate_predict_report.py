@@ -180,6 +180,15 @@ def test_report_writes_png_figures(demo_run, tmp_path, capsys):
     assert main(["report", str(run_dir), "--out-dir", str(tmp_path / "fig")]) == 0
     for name in ("learning_curves.png", "confusion_best.png"):
         assert (tmp_path / "fig" / name).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert not (tmp_path / "fig" / "slice_scores.png").exists()  # only with slices
+
+
+def test_report_draws_the_scores_per_slice(demo_run, tmp_path, capsys):
+    _, run_dir = demo_run
+    assert main(["report", str(run_dir), "--out-dir", str(tmp_path / "fig"), "--slice", "neg=phrase-words:not",
+                 "--slice", "short=phrase-length:2-5"]) == 0
+    assert (tmp_path / "fig" / "slice_scores.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert main(["report", str(run_dir), "--out-dir", str(tmp_path / "fig"), "--slice", "r=root-class:mixed"]) == 2
 
 
 def test_report_without_matplotlib_says_how_to_install(demo_run, tmp_path, monkeypatch, capsys):

@@ -48,6 +48,22 @@ def _whole_pass(checkpoint, path):
     return bank, pred
 
 
+def test_macro_f1_of_evaluate_and_of_training_match_scikit_learn(checkpoint):
+    from sklearn.metrics import f1_score
+
+    from rntn_engine.run.trainer import dev_scores
+
+    path = DEMO / "garden_dev.trees"
+    scores = score_treebank(checkpoint, str(path), LabelScheme.for_classes(5)).scores()
+    _, pred = _whole_pass(checkpoint, path)
+    trained = dev_scores(pred, 5)
+    for scope, mask in (("all", pred.gold >= 0), ("root", pred.is_root & (pred.gold >= 0))):
+        # scikit-learn reference: macro-averaged F1 over the labels present in gold or predictions
+        expected = f1_score(pred.gold[mask], pred.predicted[mask], average="macro", zero_division=0)
+        assert scores[f"macro_f1_{scope}"] == pytest.approx(expected, abs=1e-12)
+        assert trained[f"macro_f1_{scope}"] == pytest.approx(expected, abs=1e-12)
+
+
 @pytest.mark.parametrize("block_bytes, batch_trees", [(2048, 7), (1 << 20, 1024), (300, 1)])
 def test_scores_in_pieces_equal_one_whole_pass(checkpoint, block_bytes, batch_trees, monkeypatch):
     path = DEMO / "garden_dev.trees"

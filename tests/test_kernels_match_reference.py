@@ -47,6 +47,30 @@ def test_numba_objective_equals_numpy_reference(model, dtype, seed):
     assert relative_error(Y_fast, Y) < tol
 
 
+@pytest.mark.parametrize("dtype", ["float64", "float32"])
+@pytest.mark.parametrize("model", ["rnn", "rntn"])
+def test_class_weighted_objective_equals_numpy_reference(model, dtype):
+    params, bank, chunks, full, _ = engine_case(model, dtype, dim=4, seed=3, param_scale=2.0)
+    weights = np.array([3.0, 0.25, 1.0, 2.0, 0.5])
+    objective = TreeModelObjective(params, L2Strengths(0, 0, 0, 0), class_weights=weights)
+    grads = Gradient(params.shape)
+    loss = objective.loss_and_gradient(params, grads, chunks)
+    V = params.V if model == "rntn" else None
+    scale = 1.0 / bank.n_trees
+    P, Y, ref_loss = reference_forward(params.L, params.W, params.b, V, params.Ws, params.bs,
+                                       full.word, full.left, full.right, full.label, scale, weights)
+    ref = reference_backward(params.L, params.W, params.b, V, params.Ws, params.bs,
+                             full.word, full.left, full.right, full.label, scale, P, Y, weights)
+    tol = TOLERANCE[dtype]
+    assert relative_error(loss, ref_loss) < tol
+    for name in params.names():
+        assert relative_error(grads.dense(name), ref[name]) < tol, name
+    # forward-only passes (prediction, dev loss) stay unweighted
+    _, _, plain = reference_forward(params.L, params.W, params.b, V, params.Ws, params.bs,
+                                    full.word, full.left, full.right, full.label, 1.0)
+    assert relative_error(objective.forward(params, full)[0], plain) < tol
+
+
 @pytest.mark.parametrize("model", ["rnn", "rntn"])
 def test_loss_with_gradient_equals_forward_only_loss(model):
     params, bank, chunks, _, _ = engine_case(model, "float64", dim=4)

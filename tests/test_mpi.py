@@ -14,7 +14,7 @@ import time
 import numpy as np
 import pytest
 
-from demo_slices import write_demo_slices
+from demo_slices import DEMO, write_demo_slices
 from rntn_engine.model.model_registry import MODELS
 from rntn_engine.cli.app import main
 from rntn_engine.run.checkpoints import load_checkpoint
@@ -58,29 +58,71 @@ def final(run_dir):
 
 
 SETTINGS = [(m, t) for m in MODELS for t in ("float32", "float64")]
-ALL_SETTINGS_ON_TWO_RANKS = """
-import sys
+ALL_COMMANDS_ON_TWO_RANKS = """
+import contextlib, os, sys
+from mpi4py import MPI
 from rntn_engine.cli.app import main
-for args in {arg_lists!r}:
-    code = main(args + ["--mpi"])
+for args, stdout_path in {commands!r}:
+    target = (stdout_path if MPI.COMM_WORLD.Get_rank() == 0 else os.devnull) if stdout_path else None
+    with open(target, "w", encoding="utf-8") if target else contextlib.nullcontext(sys.stdout) as out:
+        with contextlib.redirect_stdout(out):
+            code = main(args + ["--mpi"])
     if code:
         sys.exit(code)
 """
 
 
-def test_two_ranks_train_bitwise_like_one_process(data, tmp_path):
-    # rnn, rntn and mvrnn, float32 and float64: all six trained in one MPI job (one launch: the suite stays fast)
-    arg_lists = [train_args(data, tmp_path / f"two-{m}-{t}", m, t) for m, t in SETTINGS]
-    done = subprocess.run([MPIEXEC, "-n", "2", sys.executable, "-c", ALL_SETTINGS_ON_TWO_RANKS.format(
-        arg_lists=arg_lists)], capture_output=True, text=True, timeout=600)
+def evaluate_cases(data, root):
+    """(name, evaluate arguments), with the demo's slices: several checkpoints on two treebanks (divided by
+    checkpoint), and one checkpoint of each dtype on a treebank of 3000 trees (two pieces of whole
+    prediction batches, 2048 and 952 trees, divided over the ranks)."""
+    big = DEMO / "garden_train.trees"  # 3000 trees
+    slices = ["--slices", str(DEMO / "garden_slices.toml")]
+    several = ["evaluate", str(root / "two-rntn-float64"), "-t", str(data / "dev.trees"), "-t",
+               str(data / "train.trees"), "--no-progress", *slices]
+    cases = [("several", several)]
+    for model, dtype in (("rntn", "float64"), ("mvrnn", "float32")):
+        cases.append((f"one-{model}-{dtype}", ["evaluate", str(root / f"two-{model}-{dtype}" / "model.h5"), "-t", str(big),
+                                               "-t", str(data / "dev.trees"), "--no-progress", *slices]))
+    return cases
+
+
+@pytest.fixture(scope="module")
+def two_rank_job(data, tmp_path_factory):
+    """One MPI job (one launch keeps the suite fast): the six trainings, then evaluate on their checkpoints."""
+    root = tmp_path_factory.mktemp("two-ranks")
+    commands = [(train_args(data, root / f"two-{m}-{t}", m, t), None) for m, t in SETTINGS]
+    commands += [(args + ["--out", str(root / f"{name}-mpi")], str(root / f"{name}-mpi.txt"))
+                 for name, args in evaluate_cases(data, root)]
+    done = subprocess.run([MPIEXEC, "-n", "2", sys.executable, "-c", ALL_COMMANDS_ON_TWO_RANKS.format(
+        commands=commands)], capture_output=True, text=True, timeout=600)
     assert done.returncode == 0, done.stderr
+    return root, done
+
+
+def test_two_ranks_train_bitwise_like_one_process(data, two_rank_job, tmp_path):
+    # rnn, rntn and mvrnn, float32 and float64
+    root, done = two_rank_job
     assert done.stdout.count("saved") == len(SETTINGS)  # rank 0 alone prints
     for model, dtype in SETTINGS:
-        one, two = tmp_path / f"one-{model}-{dtype}", tmp_path / f"two-{model}-{dtype}"
+        one, two = tmp_path / f"one-{model}-{dtype}", root / f"two-{model}-{dtype}"
         train_here(train_args(data, one, model, dtype))
         for a, b in zip(final(one), final(two)):
             assert np.array_equal(a, b), (model, dtype)
         assert [c.step for c in list_checkpoints(one)] == [c.step for c in list_checkpoints(two)]
+
+
+def test_two_ranks_evaluate_prints_and_writes_the_one_process_table(data, two_rank_job, capsys):
+    root, _ = two_rank_job
+    assert len(list_checkpoints(root / "two-rntn-float64")) > 2  # "several" divides checkpoints over the ranks
+    for name, args in evaluate_cases(data, root):
+        capsys.readouterr()
+        assert main(args + ["--out", str(root / f"{name}-one")]) == 0
+        table = capsys.readouterr().out
+        assert "fine all" in table and "error" not in table and "damaged" not in table
+        assert (root / f"{name}-mpi.txt").read_text(encoding="utf-8") == table, name
+        for suffix in (".csv", ".json"):
+            assert (root / f"{name}-mpi{suffix}").read_bytes() == (root / f"{name}-one{suffix}").read_bytes(), name
 
 
 def test_sigterm_to_the_launcher_stops_once_and_a_one_process_resume_finishes_the_same(data, tmp_path):
@@ -156,3 +198,17 @@ def test_a_rank_that_reads_other_data_stops_the_job_naming_it(data, tmp_path):
     assert done.returncode == 1, done.stderr
     assert "rank 1 sees a different content of the data files" in done.stderr
     assert done.stderr.count("rntn: error") == 1
+
+
+def test_a_data_file_missing_on_one_rank_stops_the_job_with_its_error(data, tmp_path):
+    elsewhere = tmp_path / "elsewhere"  # this rank's working directory has no train.trees
+    elsewhere.mkdir()
+    shutil.copy(data / "train.trees", tmp_path / "train.trees")
+    args = ["train", "--train-file", "train.trees", "--dim", "3", "--epochs", "1", "--run-dir", str(tmp_path / "run"),
+            "--no-progress", "--mpi"]
+    done = subprocess.run([MPIEXEC, "-n", "1", "-wdir", str(tmp_path), *RNTN, *args, ":",
+                           "-n", "1", "-wdir", str(elsewhere), *RNTN, *args], capture_output=True, text=True,
+                          timeout=120)  # before the fix the ranks waited for each other until killed
+    assert done.returncode == 1, done.stderr
+    assert f"{elsewhere / 'train.trees'}: cannot read the run's data file" in done.stderr
+    assert "Traceback" not in done.stderr and not (tmp_path / "run").exists()  # the failed start is cleaned up

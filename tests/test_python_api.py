@@ -4,6 +4,7 @@ with the command line."""
 import os
 import re
 import threading
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -54,8 +55,8 @@ def test_predict_agrees_with_the_command_line(trained, tmp_path):
     assert main(["predict", str(trained / "run" / "model.h5"), str(tmp_path / "in.txt"), "-o", str(out)]) == 0
     cli_trees = out.read_text().splitlines()
     with rn.load_model(trained / "run") as model:
-        results = model.predict(items[:8])
-        assert [r.bracketed() for r in results] == cli_trees[:8]
+        results = model.predict(items)
+        assert [r.bracketed() for r in results] == cli_trees  # plain sentences tokenised the same way too
         sentence = model.predict(["the palm house wasn't open ."])[0]
         assert sentence.from_sentence and sentence.words == ("the", "palm", "house", "was", "n't", "open", ".")
         assert sentence.root_probabilities.shape == (5,) and abs(sentence.root_probabilities.sum() - 1) < 1e-5
@@ -111,3 +112,23 @@ def test_training_in_a_thread_stops_cleanly_and_leaves_nothing_behind(trained, t
     assert [i.get("num_threads") for i in threadpool_info()] == blas_before
     done = rn.resume(tmp_path / "run", epochs=2)
     assert done.finished
+
+
+def test_predict_on_sentences_follows_the_readers_rule_and_warns_once_per_call(trained):
+    with rn.load_model(trained / "run") as model:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            results = model.predict(["the moss (really) wasn't green.", "the roses\rwere\u2028lovely",
+                                     "(S (NP (DT the) (NN moss)) (VP green.))", "zqx1 zqx2 zqx3"])
+        assert results[0].words == ("the", "moss", "(", "really", ")", "was", "n't", "green", ".")
+        assert results[1].words == ("the", "roses", "were\u2028lovely")
+        messages = [str(w.message) for w in caught]
+        assert len(messages) == 2
+        assert messages[0].startswith("1 of 4 items look untokenised (item 3: 'green.')")
+        assert "of the tokens are unknown words" in messages[1] and "(warn_unknown_share)" in messages[1]
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            model.predict(["the moss was green ."], warn_unknown_share=1.0)  # no warning at all
+        with pytest.warns(UserWarning, match=r"^1 of 1 items look untokenised \(item 1: \"wasn't\"\)"):
+            kept = model.predict(["the moss wasn't green."], tokenize=False, warn_unknown_share=1.0)[0]
+        assert kept.words == ("the", "moss", "wasn't", "green.")

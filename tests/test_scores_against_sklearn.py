@@ -2,9 +2,9 @@
 
 import numpy as np
 import pytest
-from sklearn.metrics import accuracy_score, confusion_matrix as sk_confusion, precision_recall_fscore_support
+from sklearn.metrics import accuracy_score, confusion_matrix as sk_confusion, f1_score, precision_recall_fscore_support
 
-from rntn_engine.run.scores import LabelScheme, accuracy, binary_accuracy, confusion_matrix, per_class_scores
+from rntn_engine.run.scores import LabelScheme, accuracy, binary_accuracy, confusion_matrix, macro_f1, per_class_scores
 
 
 @pytest.mark.parametrize("seed", range(5))
@@ -27,6 +27,25 @@ def test_accuracy_confusion_and_per_class_scores_match_scikit_learn(seed):
     np.testing.assert_allclose(mine["recall"], r, rtol=0, atol=1e-15)
     np.testing.assert_allclose(mine["f1"], f, rtol=0, atol=1e-12)
     assert np.array_equal(mine["support"], s)
+
+
+@pytest.mark.parametrize("case", ["plain", "class never predicted", "class absent from gold", "one class"])
+def test_macro_f1_matches_scikit_learn(case):
+    rng = np.random.default_rng(11)
+    C = 5
+    gold = rng.integers(-1, C, size=300)
+    predicted = np.where(rng.random(300) < 0.5, np.maximum(gold, 0), rng.integers(0, C, size=300))
+    if case == "class never predicted":
+        predicted[predicted == 4] = 3
+    if case == "class absent from gold":
+        gold[gold == 0] = 1
+    if case == "one class":
+        gold[gold >= 0] = 2
+        predicted[:] = 2
+    keep = gold >= 0
+    # scikit-learn reference: f1_score(average="macro") averages over the labels present in gold or predictions
+    expected = f1_score(gold[keep], predicted[keep], average="macro", zero_division=0)
+    assert macro_f1(confusion_matrix(gold, predicted, C)) == pytest.approx(expected, abs=1e-12)
 
 
 def test_binary_accuracy_matches_scikit_learn_on_the_two_sided_view():

@@ -68,3 +68,12 @@ def test_untokenised_words_are_noticed():
     assert looks_untokenised(["the", "queue."])
     assert looks_untokenised(["it", "wasn't"])
     assert not looks_untokenised(["e.g.", "Mr.", "3.5", "10:30"])
+
+
+def test_tokens_are_separated_by_the_treebank_separators_only():
+    # the tree reader's rule: space, tab, CR, FF, VT (and a line break) separate; Unicode spaces and
+    # separators belong to the word, as they do in a tree's leaves
+    sentence = "the\u00a0fern\rgrotto\u2028path\x1cend wasn't\tgreen\x0b.\u0085"
+    assert treebank_tokens(sentence) == ["the\u00a0fern", "grotto\u2028path\x1cend", "was", "n't", "green",
+                                         ".\u0085"]
+    assert treebank_tokens("a\nb.") == ["a", "b", "."]

@@ -16,12 +16,14 @@ def export_vectors(
 ) -> None:
     """Write the trained word vectors (row i of L for vocabulary word i, the unknown-word row
     `<unknown>` included) in word2vec text format (header `count dim`), or binary with --binary."""
+    from rntn_engine.cli.output_guard import output_conflict
     from rntn_engine.data.errors import InputError
     from rntn_engine.data.word_vector_writers import write_word2vec_binary, write_word2vec_text
     from rntn_engine.run.checkpoints import load_checkpoint
 
-    if out.exists() and checkpoint.exists() and out.resolve() == checkpoint.resolve():
-        raise InputError(str(out), "is the checkpoint being read; choose another output file")
+    reason = output_conflict(out, [("the checkpoint being read", checkpoint)])
+    if reason is not None:
+        raise InputError(str(out), f"{reason}; choose another output file")
     model = load_checkpoint(checkpoint)
     write = write_word2vec_binary if binary else write_word2vec_text
     try:

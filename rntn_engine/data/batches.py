@@ -24,10 +24,10 @@ from dataclasses import dataclass
 from typing import Sequence
 
 import numpy as np
-from numba import njit
 
 from rntn_engine.data.tree import Tree
 from rntn_engine.data.vocabulary import Vocabulary
+from rntn_engine.jit_setup import byte_scanner
 
 # narrowest first: the dtype a column starts with, and what it widens to when a value does not fit
 CHILD_DTYPES = (np.int16, np.int32)
@@ -150,7 +150,7 @@ def encode_treebank(trees: Sequence[Tree], vocabulary: Vocabulary) -> EncodedTre
                            start)
 
 
-@njit(cache=True, nogil=True)
+@byte_scanner
 def node_heights(left: np.ndarray, right: np.ndarray) -> np.ndarray:
     """(N,) int32 height of each node (0 at leaves) of trees in post-order; ``left``/``right`` (N,)
     index the same arrays, children before parents."""
@@ -195,7 +195,7 @@ def make_batch(bank: EncodedTreebank, tree_ids: np.ndarray) -> FlatBatch:
     return FlatBatch(word, left, right, label, height, tree_of_node, root, order, level_start, leaves)
 
 
-@njit(cache=True, nogil=True)
+@byte_scanner
 def phrase_lengths_of(left: np.ndarray, right: np.ndarray, start: np.ndarray) -> np.ndarray:
     """(N,) int32 words under each node of trees laid end to end (``start`` (T + 1,) their first nodes)."""
     n_words = np.empty(left.shape[0], dtype=np.int32)

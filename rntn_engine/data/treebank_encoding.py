@@ -162,8 +162,24 @@ def iter_encoded_blocks(
     progress: Callable[[int], None] | None = None,
 ) -> Iterator[EncodedTreebank]:
     """The file as a sequence of small banks, one per block of the reader: memory bounded by a block."""
+    for bank, _, _ in iter_encoded_blocks_and_words(path, vocabulary, num_classes=num_classes, binarise=binarise,
+                                                    progress=progress):
+        yield bank
+
+
+def iter_encoded_blocks_and_words(
+    path: str | os.PathLike,
+    vocabulary: Vocabulary,
+    *,
+    num_classes: int | None = None,
+    binarise: str = "right",
+    progress: Callable[[int], None] | None = None,
+) -> Iterator[tuple[EncodedTreebank, np.ndarray, list[str]]]:
+    """As :func:`iter_encoded_blocks`, with each block's text: (bank, token, words), ``token`` (N,) int32
+    the index into ``words`` of each leaf (-1 at internal nodes), ``words`` the file's words so far
+    (unescaped, in order of first appearance; one list, growing from block to block)."""
     ids = _VocabularyIds(vocabulary)
     for block in iter_tree_blocks(path, num_classes=num_classes, binarise=binarise, progress=progress):
         builder = _BankBuilder(block.n_nodes)
         builder.append(block, ids.of(block))
-        yield builder.finish()
+        yield builder.finish(), block.token.copy(), block.words

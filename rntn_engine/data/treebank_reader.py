@@ -22,11 +22,15 @@ One tree per record, in Penn-Treebank-style brackets::
   or a second tree there is an error.
 * Between trees, blank lines and lines whose first non-blank character is ``#``
   are skipped. Inside an open tree a ``#`` is an ordinary word character.
-* Tokens are separated by ASCII spaces and tabs (also ``\\r \\f \\v``, and line
-  breaks inside a tree); every other character, a non-breaking space included,
-  belongs to a word. Missing spaces next to brackets (``(3(2 a)(1 b))``), a
-  UTF-8 byte-order mark, CRLF line ends and a missing final newline are
-  accepted quietly.
+* The line and token rule, shared by every text input (treebanks and ``rntn predict``'s
+  input, through :class:`TextLines`): a line ends at LF (``\\n``) only, and CRs just
+  before the LF belong to the line end, so CRLF files read like LF files. Tokens are
+  separated by the ASCII separators space, tab, CR, FF and VT (``SEPARATORS``), and by
+  line breaks inside a tree; so a lone CR is a space, not a line end. Every other
+  character belongs to a word: a non-breaking space, NEL (U+0085) and the Unicode line
+  and paragraph separators (U+2028, U+2029) are neither line ends nor separators.
+  Missing spaces next to brackets (``(3(2 a)(1 b))``), a UTF-8 byte-order mark at the
+  start and a missing final newline are accepted quietly.
 * Words cannot hold ``(`` or ``)``: write ``-LRB-`` and ``-RRB-`` (likewise
   ``-LCB- -RCB- -LSB- -RSB-`` for ``{ } [ ]``); see :mod:`bracket_tokens`.
   A word glued to a ``(`` (``a(b``) is reported as a literal bracket in a word.
@@ -289,6 +293,50 @@ class LineSource:
         return self.buffer[self.pos :]
 
 
+class TextLines:
+    """The lines of a binary stream as text, by the line rule of the module docstring.
+
+    :meth:`next` returns the next line without its line end, or None at the end of the stream.
+    A line ends at LF only; the CRs just before it belong to the line end; a lone CR is a
+    token separator inside the line, not a line end. A UTF-8 byte-order mark at the very start
+    is dropped. A line longer than ``limit`` bytes (default :data:`MAX_LINE_BYTES`), a NUL byte
+    and an invalid UTF-8 sequence raise :class:`TreebankError` at their line and column,
+    worded with ``expect`` (what the input should be). ``line_no`` and ``offset``: the number
+    of the last line read and the stream offset just past it; ``last_bytes``: its length in bytes.
+    The treebank reader and ``rntn predict`` both read their input through this class.
+    """
+
+    __slots__ = ("source", "name", "line_no", "offset", "last_bytes", "limit", "expect", "limit_hint")
+
+    def __init__(self, source: LineSource, name: str, line_no: int = 0, offset: int = 0,
+                 limit: int | None = None, expect: str = _EXPECT_TEXT, limit_hint: str = "") -> None:
+        self.source = source
+        self.name = name
+        self.line_no = line_no
+        self.offset = offset
+        self.last_bytes = 0
+        self.limit = limit
+        self.expect = expect
+        self.limit_hint = limit_hint  # after the limit in the message, e.g. the option that sets it
+
+    def next(self) -> str | None:
+        limit = MAX_LINE_BYTES if self.limit is None else self.limit  # read at call time (tests patch it)
+        bom = len(BOM) if self.line_no == 0 and self.offset == len(BOM) else 0  # read past already
+        raw = self.source.readline(limit + 1 - bom)
+        if not raw:
+            return None
+        self.line_no += 1
+        if len(raw) + bom > limit and raw[-1:] != b"\n":
+            raise TreebankError(self.name, f"line longer than {limit} bytes{self.limit_hint}: {self.expect}", self.line_no, 1)
+        if self.offset == 0 and raw.startswith(BOM):
+            raw = raw[len(BOM) :]
+            self.offset = len(BOM)
+        text = _decode_line(raw, self.name, self.line_no, self.offset, self.expect).rstrip("\r\n")
+        self.offset += len(raw)
+        self.last_bytes = len(raw)
+        return text
+
+
 class ExactRecordReader:
     """The exact reader: decodes and checks line by line, assembles records, parses each.
 
@@ -299,46 +347,43 @@ class ExactRecordReader:
 
     def __init__(self, source: LineSource, name: str, labels: "LabelReader", mode: str,
                  line_no: int = 0, offset: int = 0) -> None:
-        self.source = source
+        self.lines = TextLines(source, name, line_no, offset)
         self.name = name
         self.labels = labels
         self.mode = mode
-        self.line_no = line_no
-        self.offset = offset
         self.records = RecordAssembler()
         self.record_bytes = 0  # bytes of the lines of the open record so far
         self.record_line = 0  # first line of the last record read
         self.unreported = 0  # lines read and not yet passed to a progress callback
 
+    @property
+    def line_no(self) -> int:
+        return self.lines.line_no
+
+    @property
+    def offset(self) -> int:
+        return self.lines.offset
+
     def next_tree(self) -> Tree | None:
         """The next tree, or None at the end of the file."""
-        name, records = self.name, self.records
+        name, records, lines = self.name, self.records, self.lines
         while True:
-            bom = len(BOM) if self.line_no == 0 and self.offset == len(BOM) else 0  # read past already
-            raw = self.source.readline(MAX_LINE_BYTES + 1 - bom)
-            if not raw:
+            text = lines.next()
+            if text is None:
                 done = records.finish()
                 if done is None:
                     return None
                 self.record_line = done[0][0][0]
                 return _parse_record(done[0], name, self.labels, self.mode, None, end="the end of the file")
-            self.line_no += 1
             self.unreported += 1
-            if len(raw) + bom > MAX_LINE_BYTES and raw[-1:] != b"\n":
-                raise TreebankError(name, f"line longer than {MAX_LINE_BYTES} bytes: {_EXPECT_TEXT}", self.line_no, 1)
-            if self.offset == 0 and raw.startswith(BOM):
-                raw = raw[len(BOM) :]
-                self.offset = len(BOM)
-            text = _decode_line(raw, name, self.line_no, self.offset).rstrip("\r\n")
-            self.offset += len(raw)
             was_open = records.open
-            done = records.feed(self.line_no, text)
+            done = records.feed(lines.line_no, text)
             if done is not None:
                 self.record_line = done[0][0][0]
                 return _parse_record(done[0], name, self.labels, self.mode, done[1], end="the end of the file")
             if not records.open:
                 continue
-            self.record_bytes = (self.record_bytes if was_open else 0) + len(raw)
+            self.record_bytes = (self.record_bytes if was_open else 0) + lines.last_bytes
             if self.record_bytes > MAX_TREE_BYTES:
                 first_line, first_text = records.lines[0]
                 column = len(first_text) - len(first_text.lstrip(SEPARATORS)) + 1
@@ -394,12 +439,12 @@ def check_signature(name: str, head: bytes) -> None:
             raise TreebankError(name, f"{what}: {_EXPECT_TEXT}", 1, 1)
 
 
-def _decode_line(raw: bytes, name: str, line_no: int, offset: int) -> str:
+def _decode_line(raw: bytes, name: str, line_no: int, offset: int, expect: str = _EXPECT_TEXT) -> str:
     """The line as text; TreebankError at a NUL byte or an invalid UTF-8 sequence."""
     nul = raw.find(b"\x00")
     if nul >= 0:
         column = len(raw[:nul].decode("utf-8", "replace")) + 1
-        message = f"binary or compressed file: NUL byte at byte {offset + nul} of the file; {_EXPECT_TEXT}"
+        message = f"binary or compressed file: NUL byte at byte {offset + nul} of the file; {expect}"
         raise TreebankError(name, message, line_no, column)
     try:
         return raw.decode("utf-8")
@@ -407,7 +452,7 @@ def _decode_line(raw: bytes, name: str, line_no: int, offset: int) -> str:
         column = len(raw[: exc.start].decode("utf-8")) + 1
         raise TreebankError(
             name,
-            f"invalid UTF-8 byte 0x{raw[exc.start]:02x} (byte {offset + exc.start} of the file): {_EXPECT_TEXT}",
+            f"invalid UTF-8 byte 0x{raw[exc.start]:02x} (byte {offset + exc.start} of the file): {expect}",
             line_no,
             column,
         ) from None
@@ -442,7 +487,9 @@ class LabelReader:
             return value
         if token[:1] == "-" and token[1:].isascii() and token[1:].isdigit():
             return f"negative label {_quote(token)}: {self.expected}"
-        return f"{self.expected}; found {_quote(token)}"
+        return (f"{self.expected}; found {_quote(token)}: a category label (as parsers write) is accepted only "
+                "for prediction (`rntn predict`, predict() in Python), which ignores labels; training and scoring "
+                "need class numbers")
 
 
 class _AnyLabel(LabelReader):

@@ -40,7 +40,8 @@ and, returned, the block's words: word i is ``arena[arena_start[i]:arena_start[i
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+
+from rntn_engine.jit_setup import byte_scanner
 
 FINISHED = 0  # every complete record before ``consumed`` is read; the rest needs more bytes (or is empty)
 STOPPED = 1  # the record starting at ``consumed`` is left to the exact reader
@@ -53,17 +54,17 @@ _FNV_OFFSET = np.uint64(14695981039346656037)
 _FNV_PRIME = np.uint64(1099511628211)
 
 
-@njit(cache=True, nogil=True, inline="always")
+@byte_scanner(inline=True)
 def _is_separator(c):
     return c == 32 or c == 9 or c == 13 or c == 12 or c == 11
 
 
-@njit(cache=True, nogil=True, inline="always")
+@byte_scanner(inline=True)
 def _ends_token(c):
     return c == 32 or c == 9 or c == 13 or c == 12 or c == 11 or c == 10 or c == 40 or c == 41
 
 
-@njit(cache=True, nogil=True)
+@byte_scanner
 def count_opens_and_lines(data, end):
     """(number of '(' bytes, number of line breaks) in ``data[:end]``."""
     opens = 0
@@ -75,7 +76,7 @@ def count_opens_and_lines(data, end):
     return opens, breaks
 
 
-@njit(cache=True, nogil=True)
+@byte_scanner
 def new_word_table(slots, arena_bytes, words):
     """An empty word table: (slots, arena, arena_start), see "The word table" below."""
     arena_start = np.empty(words + 1, dtype=np.int64)
@@ -83,7 +84,7 @@ def new_word_table(slots, arena_bytes, words):
     return np.zeros((slots, 3), dtype=np.uint64), np.empty(arena_bytes, dtype=np.uint8), arena_start
 
 
-@njit(cache=True, nogil=True)
+@byte_scanner
 def _grown(table, arena, arena_start, n_words, extra_bytes):
     """The word table with room for one more word of ``extra_bytes`` bytes (arrays doubled as needed)."""
     if 10 * (n_words + 1) > 6 * table.shape[0]:  # at most 60% of the slots in use
@@ -119,7 +120,7 @@ def _grown(table, arena, arena_start, n_words, extra_bytes):
 # counts), four times the lookup itself.
 
 
-@njit(cache=True, nogil=True)
+@byte_scanner
 def merge_words(table, arena, arena_start, n_words, block_arena, block_start, used, ids):
     """Look up (or add) each used word of a block's word table in a file-wide one; ``ids[d]`` gets word d's
     id in the file table, or -1 when ``used[d]`` is false (a word only of a record left to the exact reader).
@@ -176,7 +177,7 @@ def merge_words(table, arena, arena_start, n_words, block_arena, block_start, us
     return table, arena, arena_start, n_words
 
 
-@njit(cache=True, nogil=True)
+@byte_scanner
 def scan_records(data, end, at_eof, first_line_extra, mode, num_classes, max_line, max_tree,
                  node_word, node_token, node_left, node_right, node_label, leaf_token, tree_nodes, tree_leaves,
                  tree_line, stack, kids):

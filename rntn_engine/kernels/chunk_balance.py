@@ -18,7 +18,7 @@ of the thread count, so results stay bitwise independent of the threads that run
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+from rntn_engine.jit_setup import numeric_kernel
 
 # Work of an internal node and of a level, in integers (half a node's work per level). Measured with
 # `python scripts/bench_tensor_term.py levels` (training step of one chunk, 1 thread, least squares over
@@ -29,7 +29,7 @@ NODE_WORK = 2
 LEVEL_WORK = 1
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def tree_shapes(left, right, start, tree_ids):
     """(internal (B,) int64, height (B,) int64) of the trees ``tree_ids`` of an encoded treebank.
 
@@ -59,7 +59,7 @@ def tree_shapes(left, right, start, tree_ids):
     return internal, height
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def _chunks_needed(internal, height, limit, node_work, level_work):
     """Chunks the greedy cut needs when no chunk may exceed ``limit`` work."""
     count = 1
@@ -77,7 +77,7 @@ def _chunks_needed(internal, height, limit, node_work, level_work):
     return count
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def balanced_cuts(internal, height, chunks, node_work, level_work):
     """(k+1,) int64 bounds, k <= chunks: chunk c holds trees bounds[c]..bounds[c+1]-1 (module docstring).
 

@@ -2,14 +2,15 @@
 
 Legend: N nodes in the batch, d vector size, C classes.
 
-Forward, for every node i with vector p_i (RNTN, 2013):
+Forward, for every node i with vector p_i (RNTN, 2013), and a weight w_c per class
+(all 1 for the plain cross-entropy):
 
     s_i = Ws p_i + bs                        (C,)
     y_i = softmax(s_i)                       (C,)
-    loss = scale * sum over labelled i of  -log y_i[t_i]
-         = scale * sum over labelled i of  (logsumexp(s_i) - s_i[t_i])
+    loss = scale * sum over labelled i of  w[t_i] * (-log y_i[t_i])
+         = scale * sum over labelled i of  w[t_i] * (logsumexp(s_i) - s_i[t_i])
 
-Backward, with ds_i = scale * (y_i - onehot(t_i)) at labelled nodes and 0 at
+Backward, with ds_i = scale * w[t_i] * (y_i - onehot(t_i)) at labelled nodes and 0 at
 unlabelled ones:
 
     dWs += sum_i ds_i p_i^T                  (C, d)
@@ -26,12 +27,13 @@ from numba import njit
 
 
 @njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
-def forward_classify(Y, S, P, Ws, bs, label, scale):
-    """Class probabilities of every node and the scaled cross-entropy loss.
+def forward_classify(Y, S, P, Ws, bs, label, weight, scale):
+    """Class probabilities of every node and the scaled, class-weighted cross-entropy loss.
 
     Y (N, C) out: probabilities; S (N, C) out: scores Ws p + bs.
-    P (N, d) node vectors; Ws (C, d); bs (C,); label (N,) int32, -1 = unlabelled.
-    Returns loss = scale * sum over labelled nodes of -log Y[i, label[i]].
+    P (N, d) node vectors; Ws (C, d); bs (C,); label (N,) int32, -1 = unlabelled;
+    weight (C,) float64 the weight of each gold class (ones: the plain cross-entropy).
+    Returns loss = scale * sum over labelled nodes of -weight[label[i]] * log Y[i, label[i]].
     """
     N, C = Y.shape
     np.dot(P, Ws.T, S)  # (N, d) x (d, C) -> (N, C)
@@ -51,16 +53,17 @@ def forward_classify(Y, S, P, Ws, bs, label, scale):
         t = label[i]
         if t >= 0:
             # -log softmax(s)[t] = log(sum exp(s - top)) + top - s[t], exact even when y[t] underflows
-            loss += np.log(total) + top - S[i, t]
+            loss += weight[t] * (np.log(total) + top - S[i, t])
     return loss * scale
 
 
 @njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
-def backward_classify(dWs, dbs, E, dS, Y, P, Ws, label, scale):
+def backward_classify(dWs, dbs, E, dS, Y, P, Ws, label, weight, scale):
     """Gradients of the classifier and the error each node vector receives from its own classifier.
 
     dWs (C, d) += ; dbs (C,) += ; E (N, d) out (overwritten): Ws^T ds per node.
-    dS (N, C) workspace; Y (N, C) from forward_classify; P (N, d); Ws (C, d); label (N,).
+    dS (N, C) workspace; Y (N, C) from forward_classify; P (N, d); Ws (C, d); label (N,);
+    weight (C,) float64 as in forward_classify.
     """
     N, C = Y.shape
     for i in range(N):
@@ -69,9 +72,10 @@ def backward_classify(dWs, dbs, E, dS, Y, P, Ws, label, scale):
             for c in range(C):
                 dS[i, c] = 0.0
         else:
+            g = scale * weight[t]  # equals scale, bit for bit, when the weight is 1
             for c in range(C):
-                dS[i, c] = scale * Y[i, c]
-            dS[i, t] -= scale
+                dS[i, c] = g * Y[i, c]
+            dS[i, t] -= g
     # dWs += dS^T P: accumulate through a small product to keep `+=` the only write to gradients
     dWs += np.dot(dS.T, P)  # (C, N) x (N, d)
     for i in range(N):

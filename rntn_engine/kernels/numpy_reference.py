@@ -8,9 +8,9 @@ the forward pass and in reverse post-order for the backward pass.
 
     leaf:      p = L[w]
     internal:  x = [p_l ; p_r];  p = tanh(W x + b + h),  h_k = x^T V[k] x  (h = 0 for the RNN)
-    all nodes: y = softmax(Ws p + bs);  loss = scale * sum_labelled -log y[t]
+    all nodes: y = softmax(Ws p + bs);  loss = scale * sum_labelled -w[t] log y[t]   (w: class weights, 1 by default)
 
-    ds = scale * (y - onehot(t)) (0 when unlabelled)
+    ds = scale * w[t] * (y - onehot(t)) (0 when unlabelled)
     dWs += ds p^T;  dbs += ds;  e = Ws^T ds + (error from the parent)
     internal: delta = e * (1 - p^2);  dW += delta x^T;  db += delta;  dV[k] += delta_k x x^T
               e_x = W^T delta + sum_k delta_k (V[k] + V[k]^T) x;  left gets e_x[:d], right e_x[d:]
@@ -28,8 +28,14 @@ from __future__ import annotations
 import numpy as np
 
 
-def reference_forward(L, W, b, V, Ws, bs, word, left, right, label, scale):
-    """Returns (P (N, d), Y (N, C), loss). V is None for the RNN."""
+def _weight_of(class_weight, C):
+    """(C,) class weights: ones when none are given (the plain cross-entropy)."""
+    return np.ones(C) if class_weight is None else np.asarray(class_weight, dtype=np.float64)
+
+
+def reference_forward(L, W, b, V, Ws, bs, word, left, right, label, scale, class_weight=None):
+    """Returns (P (N, d), Y (N, C), loss). V is None for the RNN; class_weight (C,) or None (all 1)."""
+    w = _weight_of(class_weight, Ws.shape[0])
     N = word.shape[0]
     d = L.shape[1]
     P = np.zeros((N, d), dtype=L.dtype)
@@ -48,13 +54,14 @@ def reference_forward(L, W, b, V, Ws, bs, word, left, right, label, scale):
         y = np.exp(s - s.max())
         Y[i] = y / y.sum()
         if label[i] >= 0:
-            loss += -np.log(Y[i, label[i]])
+            loss += -w[label[i]] * np.log(Y[i, label[i]])
     return P, Y, scale * loss
 
 
-def reference_backward(L, W, b, V, Ws, bs, word, left, right, label, scale, P, Y):
+def reference_backward(L, W, b, V, Ws, bs, word, left, right, label, scale, P, Y, class_weight=None):
     """Returns a dict of gradients with keys L, W, b, V (or absent for the RNN), Ws, bs."""
     N, d = P.shape
+    w = _weight_of(class_weight, Ws.shape[0])
     grads = {"L": np.zeros_like(L), "W": np.zeros_like(W), "b": np.zeros_like(b),
              "Ws": np.zeros_like(Ws), "bs": np.zeros_like(bs)}
     if V is not None:
@@ -63,8 +70,8 @@ def reference_backward(L, W, b, V, Ws, bs, word, left, right, label, scale, P, Y
     for i in range(N - 1, -1, -1):  # reverse post-order: parents before children
         ds = np.zeros(Ws.shape[0], dtype=P.dtype)
         if label[i] >= 0:
-            ds = scale * Y[i].copy()
-            ds[label[i]] -= scale
+            ds = scale * w[label[i]] * Y[i].copy()
+            ds[label[i]] -= scale * w[label[i]]
         grads["Ws"] += np.outer(ds, P[i])
         grads["bs"] += ds
         e = Ws.T @ ds + E[i]
@@ -122,8 +129,9 @@ def reference_tensor_input_gradient(V, X, Delta):
 #    leaf:     dL[w] += e;  dLM[w] += EP
 
 
-def reference_forward_mv(L, LM, W, b, WM, Ws, bs, word, left, right, label, scale):
-    """Returns (P (N, d), PM (N, d, d), Y (N, C), loss) of the MV-RNN."""
+def reference_forward_mv(L, LM, W, b, WM, Ws, bs, word, left, right, label, scale, class_weight=None):
+    """Returns (P (N, d), PM (N, d, d), Y (N, C), loss) of the MV-RNN; class_weight as in reference_forward."""
+    w = _weight_of(class_weight, Ws.shape[0])
     N = word.shape[0]
     d = L.shape[1]
     P = np.zeros((N, d), dtype=L.dtype)
@@ -141,12 +149,13 @@ def reference_forward_mv(L, LM, W, b, WM, Ws, bs, word, left, right, label, scal
         y = np.exp(s - s.max())
         Y[i] = y / y.sum()
         if label[i] >= 0:
-            loss += -np.log(Y[i, label[i]])
+            loss += -w[label[i]] * np.log(Y[i, label[i]])
     return P, PM, Y, scale * loss
 
 
-def reference_backward_mv(L, LM, W, b, WM, Ws, bs, word, left, right, label, scale, P, PM, Y):
+def reference_backward_mv(L, LM, W, b, WM, Ws, bs, word, left, right, label, scale, P, PM, Y, class_weight=None):
     """Returns a dict of MV-RNN gradients with keys L, LM, W, b, WM, Ws, bs."""
+    w = _weight_of(class_weight, Ws.shape[0])
     N, d = P.shape
     grads = {name: np.zeros_like(value) for name, value in
              (("L", L), ("LM", LM), ("W", W), ("b", b), ("WM", WM), ("Ws", Ws), ("bs", bs))}
@@ -154,7 +163,8 @@ def reference_backward_mv(L, LM, W, b, WM, Ws, bs, word, left, right, label, sca
     EM = np.zeros((N, d, d), dtype=P.dtype)  # error reaching each node matrix from its parent
     onehot = np.eye(Ws.shape[0], dtype=P.dtype)
     for i in range(N - 1, -1, -1):  # reverse post-order: parents before children
-        ds = scale * (Y[i] - onehot[label[i]]) if label[i] >= 0 else 0.0 * Y[i]  # softmax error, 0 if unlabelled
+        # softmax error, 0 if unlabelled
+        ds = scale * w[label[i]] * (Y[i] - onehot[label[i]]) if label[i] >= 0 else 0.0 * Y[i]
         grads["Ws"] += np.outer(ds, P[i])
         grads["bs"] += ds
         e = Ws.T @ ds + E[i]

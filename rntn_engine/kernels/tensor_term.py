@@ -50,7 +50,7 @@ single-threaded inside one chunk). The NumPy twins are ``reference_tensor_term``
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+from rntn_engine.jit_setup import numeric_kernel
 
 NODE_BLOCK = 4  # nodes per register block of the own kernel
 TILE = 256  # columns of Q per tile of the own kernel: NODE_BLOCK x TILE sums stay in L1 (8 KiB in float64)
@@ -71,7 +71,7 @@ TILE = 256  # columns of Q per tile of the own kernel: NODE_BLOCK x TILE sums st
 OWN_KERNEL_ROWS = 0
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def _tensor_h(Z, Q, X, hv, s, e, q0):
     """Z[m, k] += x_m . q_k / 2 for m in s..e-1 (Q row of node m: q0 + m - s); hv (d,) workspace."""
     d = Z.shape[1]
@@ -82,7 +82,7 @@ def _tensor_h(Z, Q, X, hv, s, e, q0):
             Z[m, k] += 0.5 * hv[k]
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def tensor_term_forward_blas(Z, Q, X, Vsym, hv, s, e, q0):
     """Rows s..e-1: Q[q0 : q0+e-s] = X[s:e] Vsym (one BLAS product), then Z[m] += h (module docstring).
 
@@ -92,7 +92,7 @@ def tensor_term_forward_blas(Z, Q, X, Vsym, hv, s, e, q0):
     _tensor_h(Z, Q, X, hv, s, e, q0)
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def tensor_term_forward_own(Z, Q, X, Vsym, hv, acc, s, e, q0):
     """The same as tensor_term_forward_blas, register-blocked (module docstring).
 
@@ -153,7 +153,7 @@ def tensor_term_forward_own(Z, Q, X, Vsym, hv, acc, s, e, q0):
     _tensor_h(Z, Q, X, hv, s, e, q0)
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def pair_layout(T, V):
     """T (d, D(D+1)/2) out: T[k, p(i,j)] = V[k,i,j] + V[k,j,i] for i < j, V[k,i,i] for i = j;
     pairs row by row over the upper triangle (p(0,0), p(0,1), .., p(0,D-1), p(1,1), ..). V (d, D, D)."""
@@ -168,7 +168,7 @@ def pair_layout(T, V):
                 p += 1
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def tensor_term_forward_pairs(Z, work, X, T, s, e):
     """Forward only, rows s..e-1: Z[m, k] += h_k from the pair products (module docstring).
 
@@ -199,7 +199,7 @@ def tensor_term_forward_pairs(Z, work, X, T, s, e):
             Z[s + m, k] += HT[k, m]
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def tensor_gradient_pairs(dT, U, X, Delta):
     """dT (d, D(D+1)/2) out = Delta^T U with U[m, p(i,j)] = X[m, i] X[m, j] (module docstring).
 
@@ -220,7 +220,7 @@ def tensor_gradient_pairs(dT, U, X, Delta):
     np.dot(Delta.T, U, dT)  # (d, M) x (M, pairs)
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def add_pair_layout_gradient(dV, dT):
     """dV (d, D, D) += the pair-layout gradient: dV[k, i, j] += dT[k, p(i,j)] and dV[k, j, i] too (i < j)."""
     d, D, _ = dV.shape
@@ -235,7 +235,7 @@ def add_pair_layout_gradient(dV, dT):
                 p += 1
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def tensor_term_input_gradient(EX, Delta, Q, s, e):
     """Rows s..e-1: EX[m, j] += sum_k Delta[m, k] Q[m, k*D + j]   (e_x += sum_k delta_k q_k).
 

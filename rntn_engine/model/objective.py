@@ -2,7 +2,7 @@
 
 For a minibatch of B trees whose leaves hold the set of distinct words U:
 
-    J = (1/B) * sum over labelled nodes of -log y[t]
+    J = (1/B) * sum over labelled nodes of -w[t] log y[t]      (w: class weights, all 1 by default)
         + sum over dense groups g of (lambda_g / 2) * ||theta_g||^2
         + (lambda_words / 2) * sum over w in U of ||L[w] - A[w]||^2
         + (lambda_word_matrices / 2) * sum over w in U of ||LM[w]||^2          (MV-RNN)
@@ -116,11 +116,27 @@ class ChunkGradient:
 
     def pack(self) -> bytes:
         """Everything the reduction reads, as bytes (the word arrays share their rows: one leaf, one word)."""
+        out = np.empty(self.packed_size(), dtype=np.uint8)
+        self.pack_into(out)
+        return out.tobytes()
+
+    def packed_size(self) -> int:
+        n = next(iter(self.rows.values())).rows.size
+        return 16 + self.flat.nbytes + 8 * n + sum(n * r.width * self.flat.itemsize for r in self.rows.values())
+
+    def pack_into(self, out: np.ndarray) -> None:
+        """:meth:`pack`'s bytes written into ``out`` (uint8, ``packed_size()`` long): one copy, no temporaries."""
         rows = next(iter(self.rows.values())).rows
-        parts = [np.array([self.loss], dtype=np.float64).tobytes(), np.array([rows.size], dtype=np.int64).tobytes(),
-                 self.flat.tobytes(), rows.astype(np.int64).tobytes()]
-        parts += [np.ascontiguousarray(r.values).tobytes() for r in self.rows.values()]
-        return b"".join(parts)
+        out[:8].view(np.float64)[0] = self.loss
+        out[8:16].view(np.int64)[0] = rows.size
+        at = 16 + self.flat.nbytes
+        out[16:at].view(self.flat.dtype)[:] = self.flat
+        out[at : at + 8 * rows.size].view(np.int64)[:] = rows
+        at += 8 * rows.size
+        for word_rows in self.rows.values():
+            size = rows.size * word_rows.width * self.flat.itemsize
+            out[at : at + size].view(self.flat.dtype).reshape(rows.size, -1)[:] = word_rows.values
+            at += size
 
     def unpack(self, data: bytes) -> None:
         """The inverse of :meth:`pack` (the same model and dtype on both sides)."""
@@ -142,9 +158,13 @@ class TreeModelObjective:
     """Loss, gradient and class probabilities of the RNN / RNTN / MV-RNN over flattened batches."""
 
     def __init__(self, params: Parameters, l2: L2Strengths | None = None, threads: int = 1,
-                 anchors: dict[str, np.ndarray] | None = None) -> None:
+                 anchors: dict[str, np.ndarray] | None = None, class_weights: np.ndarray | None = None) -> None:
         self.shape = params.shape
         self.model = model_spec(self.shape.model)(self.shape)  # the composition: model_spec.py
+        # (C,) the weight of each gold class in the training loss (run/class_weights.py); prediction and
+        # the forward-only scores (forward, forward_chunks) always use the plain cross-entropy (ones)
+        self._ones = np.ones(self.shape.num_classes, dtype=np.float64)
+        self.class_weights = self._ones if class_weights is None else np.asarray(class_weights, dtype=np.float64)
         # word array name -> the values its L2 term pulls toward (absent: toward zero)
         self.anchors = dict(anchors or {})
         self.l2 = l2 or L2Strengths()
@@ -185,19 +205,22 @@ class TreeModelObjective:
         return self._activations[k]
 
     def _forward_chunk(self, params: Parameters, batch: FlatBatch, acts: Activations, scale: float,
-                       keep_for_backward: bool = True) -> float:
-        """The chunk's share of the data term; P, Y (and what backward needs) are left in ``acts``."""
+                       keep_for_backward: bool = True, weights: np.ndarray | None = None) -> float:
+        """The chunk's share of the data term; P, Y (and what backward needs) are left in ``acts``.
+        ``weights``: the class weights of the loss (default: the training weights)."""
         N, C = batch.n_nodes, self.shape.num_classes
         self.model.forward(params, batch, acts, keep_for_backward)
         acts.resize({"Y": (N, C), "S": (N, C)})
-        return forward_classify(acts.Y, acts.S, acts.P, params.Ws, params.bs, batch.label, scale)
+        weights = self.class_weights if weights is None else weights
+        return forward_classify(acts.Y, acts.S, acts.P, params.Ws, params.bs, batch.label, weights, scale)
 
     def _gradient_chunk(self, params: Parameters, grads: dict[str, np.ndarray], layout_grad: np.ndarray,
                         batch: FlatBatch, acts: Activations, scale: float) -> float:
         N, C = batch.n_nodes, self.shape.num_classes
         loss = self._forward_chunk(params, batch, acts, scale)
         acts.resize({"E": (N, self.shape.dim), "dS": (N, C)})
-        backward_classify(grads["Ws"], grads["bs"], acts.E, acts.dS, acts.Y, acts.P, params.Ws, batch.label, scale)
+        backward_classify(grads["Ws"], grads["bs"], acts.E, acts.dS, acts.Y, acts.P, params.Ws, batch.label,
+                          self.class_weights, scale)
         self.model.backward(params, grads, layout_grad, batch, acts)
         return loss
 
@@ -238,10 +261,15 @@ class TreeModelObjective:
         else:
             for k in mine:
                 run(k)
-        if ranks > 1:  # every rank gets every chunk's share
-            packed = b"".join(np.array([k, len(blob)], dtype=np.int64).tobytes() + blob
-                              for k in mine for blob in [self._chunk_grads[k].pack()])
-            for data in group.allgather_bytes(packed):
+        if ranks > 1:  # every rank gets every chunk's share: (chunk, size, packed gradient) for each of mine
+            sizes = [self._chunk_grads[k].packed_size() for k in mine]
+            packed = np.empty(sum(16 + size for size in sizes), dtype=np.uint8)
+            at = 0
+            for k, size in zip(mine, sizes):
+                packed[at : at + 16].view(np.int64)[:] = (k, size)
+                self._chunk_grads[k].pack_into(packed[at + 16 : at + 16 + size])
+                at += 16 + size
+            for data in group.allgather_views(packed):
                 view, at = memoryview(data), 0
                 while at < len(view):
                     k, size = (int(x) for x in np.frombuffer(view[at : at + 16], dtype=np.int64))
@@ -303,7 +331,7 @@ class TreeModelObjective:
         """
         self.model.prepare(params, self._run_parts, forward_only=True)
         acts = self._slot(0)
-        loss = self._forward_chunk(params, batch, acts, 1.0, keep_for_backward=False)
+        loss = self._forward_chunk(params, batch, acts, 1.0, keep_for_backward=False, weights=self._ones)
         return (loss, acts.P.copy(), acts.Y.copy()) if copy else (loss, acts.P, acts.Y)
 
     def forward_chunks(self, params: Parameters, chunks: list[FlatBatch]) -> list[tuple[float, np.ndarray]]:
@@ -316,7 +344,8 @@ class TreeModelObjective:
 
         def run(k: int):
             acts = self._slot(k)
-            return self._forward_chunk(params, chunks[k], acts, 1.0, keep_for_backward=False), acts.Y
+            loss = self._forward_chunk(params, chunks[k], acts, 1.0, keep_for_backward=False, weights=self._ones)
+            return loss, acts.Y
 
         if self._pool is not None and len(chunks) > 1:
             return list(self._pool.map(run, range(len(chunks))))

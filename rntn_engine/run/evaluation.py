@@ -45,11 +45,13 @@ class TreebankPredictions:
 
 def predict_treebank(objective: TreeModelObjective, params: Parameters, bank: EncodedTreebank,
                      keep_probabilities: bool = False, batch_trees: int = PREDICT_BATCH_TREES,
-                     loss_start: float = 0.0) -> TreebankPredictions:
+                     loss_start: float = 0.0, chunk_losses: list[float] | None = None) -> TreebankPredictions:
     """Forward every tree of ``bank``; labels and (optionally) probabilities per node.
 
     ``loss_start`` is added to first: a treebank scored in pieces of whole batches
     (run/checkpoint_evaluation.py) then sums its loss in the same order as in one piece.
+    ``chunk_losses``, when given, receives every chunk's loss in order: pieces scored by
+    different processes are summed in one order later (run/distributed_evaluation.py).
     """
     n = bank.n_nodes
     predicted = np.empty(n, dtype=np.int32)
@@ -66,6 +68,8 @@ def predict_treebank(objective: TreeModelObjective, params: Parameters, bank: En
             if probabilities is not None:
                 probabilities[lo:hi] = Y
             loss_sum += loss
+            if chunk_losses is not None:
+                chunk_losses.append(loss)
             lo = hi
     is_root = np.zeros(n, dtype=bool)
     is_root[bank.start[1:] - 1] = True

@@ -5,7 +5,9 @@ environment). Every rank then holds the whole model and takes every step; rank 0
 writes files and prints. What the ranks exchange, always from all ranks to all ranks,
 through MPI's buffer interface (raw bytes and numbers: nothing is pickled):
 
-    allgather_bytes   each rank's bytes, in rank order (the chunk gradients of a step, scores)
+    allgather_bytes   each rank's bytes, in rank order (scores, hashes); allgather_views, the same
+                      as views of one reused buffer, valid until the next exchange (the chunk
+                      gradients of a step: no copy)
     largest           the largest of the ranks' numbers: one combined status per step (go on,
                       stop, or rank 0 failed to write), so every rank leaves the loop together
     broadcast_text    rank 0's text (a JSON value) to every rank
@@ -52,7 +54,10 @@ class SingleProcess:
         return self.rank == 0
 
     def allgather_bytes(self, data: bytes) -> list[bytes]:
-        return [bytes(data)]
+        return [bytes(v) for v in self.allgather_views(data)]
+
+    def allgather_views(self, data) -> list[memoryview]:
+        return [memoryview(bytes(data))]
 
     def largest(self, value: int) -> int:
         return int(value)
@@ -72,20 +77,25 @@ class SingleProcess:
                 raise ProcessGroupError(f"rank {rank} sees a different {what} than rank 0 ({json.loads(text)} "
                                         f"against {json.loads(texts[0])}): every rank needs the same files")
 
-    def root_now(self, action: Callable[[], T]) -> T | None:
-        """Run ``action`` on rank 0 only, now; if it fails, every rank raises (rank 0 its own error)."""
+    def all_now(self, action: Callable[[], T]) -> T:
+        """Run ``action`` on every rank; if it fails on any rank, every rank raises (a failing rank its own
+        error, the others :class:`PeerStopped`), so no rank is left waiting in a later exchange (a data
+        file missing on one node, say)."""
         error: BaseException | None = None
         result = None
-        if self.is_root:
-            try:
-                result = action()
-            except Exception as exc:  # re-raised below, on every rank
-                error = exc
+        try:
+            result = action()
+        except Exception as exc:  # re-raised below, after every rank knows
+            error = exc
         if self.any_true(error is not None):
             if error is not None:
                 raise error
             raise PeerStopped(1)
         return result
+
+    def root_now(self, action: Callable[[], T]) -> T | None:
+        """Run ``action`` on rank 0 only, now; if it fails, every rank raises (rank 0 its own error)."""
+        return self.all_now(action if self.is_root else lambda: None)
 
 
 class MpiRanks(SingleProcess):
@@ -104,16 +114,20 @@ class MpiRanks(SingleProcess):
         self._comm = MPI.COMM_WORLD
         self.rank = self._comm.Get_rank()
         self.size = self._comm.Get_size()
+        self._received = np.empty(0, dtype=np.uint8)  # allgather_views' buffer, reused
 
-    def allgather_bytes(self, data: bytes) -> list[bytes]:
-        mine = np.frombuffer(bytes(data), dtype=np.uint8)
+    def allgather_views(self, data) -> list[memoryview]:
+        mine = np.frombuffer(data, dtype=np.uint8)  # bytes or a uint8 array: no copy
         sizes = np.zeros(self.size, dtype=np.int64)
         self._comm.Allgather(np.array([mine.size], dtype=np.int64), sizes)
-        everything = np.empty(int(sizes.sum()), dtype=np.uint8)
-        self._comm.Allgatherv(mine, [everything, sizes, np.concatenate([[0], np.cumsum(sizes)[:-1]]),
+        total = int(sizes.sum())
+        if self._received.size < total:  # grows once: no fresh pages every step
+            self._received = np.empty(total, dtype=np.uint8)
+        self._comm.Allgatherv(mine, [self._received[:total], sizes, np.concatenate([[0], np.cumsum(sizes)[:-1]]),
                                      self._mpi.BYTE])
         starts = np.concatenate([[0], np.cumsum(sizes)])
-        return [everything[starts[r] : starts[r + 1]].tobytes() for r in range(self.size)]
+        whole = memoryview(self._received)
+        return [whole[starts[r] : starts[r + 1]] for r in range(self.size)]
 
     def largest(self, value: int) -> int:
         out = np.zeros(1, dtype=np.int64)

@@ -115,6 +115,11 @@ def plot_confusions(confusions: dict[str, np.ndarray], names: list[str], out: Pa
     return out
 
 
+SCORE_LABELS = {"fine_all": "fine-grained, all nodes", "fine_root": "fine-grained, roots",
+                "binary_all": "binary, all nodes", "binary_root": "binary, roots",
+                "macro_f1_all": "macro-F1, all nodes", "macro_f1_root": "macro-F1, roots"}
+
+
 def plot_slice_scores(rows: list[dict], out: Path, title: str, scores=("fine_all", "fine_root", "binary_all")) -> Path:
     """One group of bars per slice (``rows``: {"slice": name, "nodes": n, score: value, ...}), all scores 0..1."""
     plt = require_matplotlib()
@@ -125,13 +130,13 @@ def plot_slice_scores(rows: list[dict], out: Path, title: str, scores=("fine_all
     for k, score in enumerate(scores):
         values = [r.get(score, np.nan) for r in rows]
         bars = ax.bar(x + (k - (len(scores) - 1) / 2) * width, np.nan_to_num(values), width,
-                      label=score.replace("_", " "))
+                      label=SCORE_LABELS.get(score, score.replace("_", " ")))
         for bar, value in zip(bars, values):
             if value == value:
                 ax.text(bar.get_x() + bar.get_width() / 2, value + 0.01, f"{value:.2f}", ha="center", fontsize=7)
     ax.set_xticks(x, names, fontsize=8)
     ax.set_ylim(0, 1.08)
-    ax.set_ylabel("accuracy")
+    ax.set_ylabel("score")
     ax.set_title(title, fontsize=10)
     ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, borderaxespad=0)
     ax.grid(axis="y", alpha=0.3)

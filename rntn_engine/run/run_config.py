@@ -31,6 +31,7 @@ else:  # pragma: no cover
     import tomli as tomllib
 
 from rntn_engine.model.parameters import DTYPES, L2_GROUPS, MODELS
+from rntn_engine.run.class_weights import class_weights_problem
 from rntn_engine.run.stop_signals import parse_duration
 
 # dev scores a run can select its best checkpoint by; all higher-is-better but those in LOWER_IS_BETTER
@@ -100,6 +101,10 @@ class TrainConfig:
                                minimum=0.0)
     l2_classifier: float = setting(L2_GROUPS["classifier"].default, L2_GROUPS["classifier"].help, "result",
                                    minimum=0.0)
+    class_weights: str = setting("none", "Weights of the classes in the training cross-entropy: none (all 1), "
+                                 "balanced (n / (C * n_c) from the training nodes' labels: rare classes weigh "
+                                 "more), or one number per class separated by commas; resolved once and stored "
+                                 "with the run.", "result")
     l2_word_matrices: float = setting(L2_GROUPS["word_matrices"].default, L2_GROUPS["word_matrices"].help, "result",
                                       minimum=0.0)
     max_memory_gb: float = setting(8.0, "Refuse a model whose parameters, AdaGrad sums and gradient need more GiB "
@@ -161,6 +166,9 @@ class TrainConfig:
         if self.class_names and (len(set(self.names_of_classes())) != self.num_classes
                                  or not all(self.names_of_classes())):
             raise ConfigError("--class-names: every class needs a name of its own (a name is repeated or empty)")
+        problem = class_weights_problem(self.class_weights, self.num_classes)
+        if problem:
+            raise ConfigError(problem)
         if (self.extend_vocabulary or self.freeze_vectors) and not self.vectors_file:
             raise ConfigError("--extend-vocabulary and --freeze-vectors need --vectors")
         return self

@@ -34,6 +34,8 @@ class RunState:
         evaluations_without_improvement   when early stopping ends the run
         finished, finish_reason  whether a resume trains at all; only "all epochs done" goes on
                                  when more --epochs are asked for
+        class_weights            the weight of each class in the training loss, resolved from the
+                                 class_weights setting when the run started (empty: all 1)
         training_seconds         kept although it decides no number of training: the
                                  wall_seconds of every later metrics record count from it, so
                                  the time of all invocations adds up
@@ -51,6 +53,7 @@ class RunState:
     finished: bool = False  # the run is complete (all epochs, or stopped early)
     finish_reason: str = ""  # "all epochs done" or "early stopping"
     training_seconds: float = 0.0  # wall time spent training, all invocations together
+    class_weights: list = dataclasses.field(default_factory=list)  # (C,) weights of the training loss; []: all 1
 
     def to_dict(self) -> dict:
         return dataclasses.asdict(self)
@@ -61,6 +64,7 @@ class RunState:
         if not isinstance(record, dict):
             raise ValueError(f"run state must be a JSON object, got {type(record).__name__}")
         known = {f.name for f in dataclasses.fields(cls)}
+        record = {"class_weights": [], **record}  # checkpoints written before class weights existed: all 1
         missing = sorted(known - set(record))
         unknown = sorted(set(record) - known)
         if missing or unknown:
@@ -80,6 +84,11 @@ class RunState:
             raise ValueError(f"run state best_checkpoint {state.best_checkpoint!r} is not a checkpoint file name")
         if not isinstance(state.finished, bool):
             raise ValueError(f"run state finished must be true or false, got {state.finished!r}")
+        if not isinstance(state.class_weights, list) or not all(
+                isinstance(w, (int, float)) and not isinstance(w, bool) and math.isfinite(w) and w >= 0
+                for w in state.class_weights):
+            raise ValueError(f"run state class_weights must be a list of finite numbers >= 0, "
+                             f"got {state.class_weights!r}")
         if state.finish_reason not in FINISH_REASONS:
             raise ValueError(f"run state finish_reason {state.finish_reason!r} is not one of {FINISH_REASONS}")
         return state

@@ -83,6 +83,7 @@ from rntn_engine.run.pretrained_start import extend_with_vector_words, initial_w
 from rntn_engine.run.process_group import PeerStopped, SingleProcess
 from rntn_engine.run.run_errors import RunDirectoryError, TrainingError
 from rntn_engine.run.run_state import RunState
+from rntn_engine.run.class_weights import resolve_class_weights
 from rntn_engine.run.scores import LabelScheme, accuracy, binary_accuracy, confusion_matrix, macro_f1, majority_class
 from rntn_engine.run.stop_signals import EXIT_STOPPED_RESUMABLE, StopRequest, parse_duration
 
@@ -357,7 +358,8 @@ class Trainer:
         # --- restore: data, parameters, optimiser, position -- all at this one point --------------------------
         # rank 0 alone keeps the encoded-treebank cache in the run directory; other ranks read the text
         cache_dir = self.run_dir / TREEBANK_CACHE_DIR if self.group.is_root else None
-        data = load_training_data(config, checkpoint.vocabulary if checkpoint else None, cache_dir=cache_dir)
+        data = self.group.all_now(lambda: load_training_data(config, checkpoint.vocabulary if checkpoint else None,
+                                                             cache_dir=cache_dir))
         self.group.same_on_all(data.hashes, "content of the data files (SHA-256)")
         if self.fault:
             self.fault("data_loaded")
@@ -393,7 +395,13 @@ class Trainer:
 
         grads = Gradient(shape)
         l2 = L2Strengths(**{group: getattr(config, f"l2_{group}") for group in L2_GROUPS})
-        objective = TreeModelObjective(params, l2, threads=config.threads, anchors=self.anchors)
+        if checkpoint is None and config.class_weights != "none":
+            state.class_weights = resolve_class_weights(config.class_weights, bank.label, config.num_classes).tolist()
+        weights = np.array(state.class_weights, dtype=np.float64) if state.class_weights else None
+        if weights is not None and weights.shape != (config.num_classes,):
+            raise TrainingError(f"the run state holds {weights.size} class weights for {config.num_classes} classes")
+        objective = TreeModelObjective(params, l2, threads=config.threads, anchors=self.anchors,
+                                       class_weights=weights)
         steps_per_epoch = -(-bank.n_trees // config.batch_size)
         stop = self.stop
         stop.set_time_limit(parse_duration(config.time_limit) if config.time_limit else 0.0)
@@ -404,6 +412,10 @@ class Trainer:
                   f"({shape.training_bytes() / 2**20:.1f} MiB with gradient and AdaGrad state), {where}")
         if data.dev is not None and checkpoint is None:
             self.echo(majority_baseline_line(bank, data.dev))
+        if weights is not None and checkpoint is None:
+            names = config.names_of_classes()
+            self.echo(f"class weights ({config.class_weights if config.class_weights == 'balanced' else 'given'}): "
+                      + ", ".join(f"{names[c]} {w:.4g}" for c, w in enumerate(weights)))
         if checkpoint is None:  # step 0: a resume never starts from nothing
             self.on_root(lambda: list_checkpoints(self.run_dir) or self._save(
                 self.run_dir / checkpoint_name(0), params, optimiser, state, history, data))
@@ -671,7 +683,7 @@ def resume_training(run_dir: Path, overrides: dict, echo: Callable[[str], None] 
             resolve_data_paths(config, tuple(moved))
             config.validate()
             if checkpoint is not None:
-                hashes = data_file_hashes(config, run_dir)
+                hashes = group.all_now(lambda: data_file_hashes(config, run_dir))
                 group.same_on_all(hashes, "content of the data files (SHA-256)")
                 changed = [k for k, v in hashes.items() if checkpoint.data_hashes.get(k) != v]
                 if changed and not allow_changed_data:
@@ -714,4 +726,6 @@ def format_epoch_line(record: dict) -> str:
     line = f"epoch {record['epoch']:>3}  step {record['step']:>7}  train loss {record['train_loss']:.4f}"
     if "dev_fine_all" in record:
         line += f"  dev fine all-nodes {record['dev_fine_all']:.4f}  root {record['dev_fine_root']:.4f}"
+        if "dev_macro_f1_all" in record:
+            line += f"  macro-F1 all-nodes {record['dev_macro_f1_all']:.4f}  root {record['dev_macro_f1_root']:.4f}"
     return line + f"  ({record['wall_seconds']:.1f} s)"
