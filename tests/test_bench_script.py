@@ -57,3 +57,26 @@ def test_treebank_bench_runs_tiny_and_reports_every_figure(tmp_path, capsys):
     assert size["evaluate"]["trees_per_second"] > 0 and size["evaluate"]["exit_code"] == 0
     lengths = [line.count("(") for line in (tmp_path / "synthetic-300-v200.trees").read_text().splitlines()]
     assert len(lengths) == 300 and 2 * 16 - 1 <= sum(lengths) / 300 <= 2 * 22 - 1  # about 19 words a tree
+
+
+def test_bench_measures_a_baseline_tree_setting_by_setting(capsys):
+    """--baseline-tree: the same settings measured on another checkout (here this one) and the ratios printed."""
+    bench = load_bench()
+    tree = SCRIPT.parents[1]
+    result = bench.main(["--trees", "40", "--vocab", "50", "--dims", "4", "--dtypes", "float64", "--threads", "1",
+                         "--steps", "2", "--repeats", "1", "--matmul-size", "32", "--skip-process-probes",
+                         "--own-kernel-rows", "3", "--baseline-tree", str(tree)])
+    (setting,) = result["settings"]
+    assert setting["baseline"]["train_seconds_per_epoch"] > 0 and setting["baseline"]["forward_trees_per_s"] > 0
+    assert setting["epoch_new_over_old"] > 0 and setting["eval_new_over_old"] > 0
+    assert "epoch new/old" in capsys.readouterr().out
+
+
+def test_tensor_term_bench_runs_tiny(capsys):
+    spec = importlib.util.spec_from_file_location("rntn_bench_tt", SCRIPT.parent / "bench_tensor_term.py")
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    module.main(["widths", "levels", "--dims", "3", "--dtypes", "float64", "--rounds", "1", "--chunks", "6",
+                 "--trees", "30"])
+    out = capsys.readouterr().out
+    assert "d=3 float64" in out and "level / node" in out
