@@ -375,11 +375,18 @@ def main() -> int:
         original = path.read_bytes()
         stat = path.stat()
         path.write_bytes(original.decode("utf-8").replace(m.old, m.new, 1).encode("utf-8"))
+        # numba's on-disk cache follows a kernel's own file only: tree_compose.py's cached kernels would
+        # keep the unmutated code of the tensor_term.py kernels they call. A kernel mutation therefore
+        # runs with an empty cache of its own (everything it runs is compiled afresh).
+        fresh_cache = workdir / f"numba-cache-{m.name}"
+        run_env = dict(env, NUMBA_CACHE_DIR=str(fresh_cache)) if m.path.startswith("rntn_engine/kernels/") else env
         try:
-            verdict, detail, seconds = run_pytest(root, ["tests"] if args.full else list(m.tests), env, args.timeout)
+            verdict, detail, seconds = run_pytest(root, ["tests"] if args.full else list(m.tests), run_env,
+                                                  args.timeout)
         finally:
             path.write_bytes(original)
             os.utime(path, ns=(stat.st_atime_ns, stat.st_mtime_ns))
+            shutil.rmtree(fresh_cache, ignore_errors=True)
         if verdict == "fail":
             result = f"caught by {detail}"
         elif verdict == "pass":
