@@ -17,10 +17,10 @@ integers is a word2vec header, anything else is the first row of a GloVe file
 (so a GloVe file of 1-dimensional vectors whose first word is a number needs
 ``format="glove"``). After a header, the first row decides text or binary
 (:func:`first_row_is_binary`): binary if, where its values should be, the file
-holds bytes that no text row has there: an ASCII control byte, bytes that are not
-UTF-8, or no value before the line ends. Only a binary row whose first 4d bytes
-are all printable text (say d = 1 and a value whose four bytes are letters) fools
-the test; force the format for such a file. A forced format that disagrees with
+holds bytes that no text row has there: an ASCII control byte, a non-ASCII byte,
+or no value before the line ends. Only a binary row whose bytes up to its first line
+feed (at most 4d) are all printable ASCII (say d = 1 and a value whose four bytes are
+letters) fools the test; force the format for such a file. A forced format that disagrees with
 the test is an error that names the other format, so a binary file read as text
 (and the reverse) gets one clear line instead of garbage.
 
@@ -29,7 +29,6 @@ Compression is recognised by the gzip magic bytes ``1f 8b``, never by the file n
 
 from __future__ import annotations
 
-import codecs
 import gzip
 import io
 import re
@@ -56,7 +55,8 @@ _GZIP_PIECE = 1024 * 1024  # gzip data is decompressed this much at a time, to l
 _BOM = b"\xef\xbb\xbf"
 _HEADER_RE = re.compile(rb"[ \t]*([0-9]{1,18})[ \t]+([0-9]{1,18})[ \t\r]*")
 # ASCII control bytes that never occur in a text row (tab and CR are allowed; LF ends the region)
-_CONTROL_RE = re.compile(rb"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f]")
+# bytes no text row has where its numbers are: ASCII controls (but tab and CR) and every non-ASCII byte
+_NOT_NUMBER_TEXT_RE = re.compile(rb"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\xff]")
 
 
 def quote(raw: bytes, limit: int = 40) -> str:
@@ -199,8 +199,9 @@ def first_row_is_binary(rest: bytes, dim: int) -> bool:
     """Does the row starting ``rest`` hold binary float32 values rather than text numbers?
 
     Looks at up to ``min(4d, DETECTION_WINDOW)`` bytes after the word's space, up to
-    the first line feed: binary if that region is empty, holds an ASCII control
-    byte or is not UTF-8 (an incomplete character at the window's end is allowed).
+    the first line feed: binary if that region is empty, or holds an ASCII control byte or
+    any non-ASCII byte (a text row's numbers are ASCII: a float32 such as 9754250833821696.0,
+    bytes c2 9d 0a 5a, is valid UTF-8 before its line feed but not number text).
     A row whose line ends before any space is text (a word without values).
     """
     start = len(rest) - len(rest.lstrip(b"\n"))  # binary rows may begin with the previous row's \n
@@ -209,13 +210,7 @@ def first_row_is_binary(rest: bytes, dim: int) -> bool:
     if space < 0 or newline >= 0:
         return False
     region = rest[space + 1 : space + 1 + min(4 * dim, DETECTION_WINDOW)].split(b"\n", 1)[0]
-    if not region or _CONTROL_RE.search(region):
-        return True
-    try:
-        codecs.utf_8_decode(region, "strict", False)
-    except UnicodeDecodeError:
-        return True
-    return False
+    return not region or _NOT_NUMBER_TEXT_RE.search(region) is not None
 
 
 def check_dim(path: str, dim: int, expected_dim: int | None, binary: bool) -> None:
