@@ -9,8 +9,8 @@ Two kinds of compiled function:
   threads run at once; ``fastmath=False`` keeps IEEE arithmetic (bit-reproducible results, NaN
   and inf propagate); ``error_model="numpy"``: a division by zero gives inf or NaN, as in NumPy,
   instead of a Python exception check in every loop.
-- ``byte_scanner``: the treebank scanners and batch builders (data/), integer code over bytes
-  and offsets, keeping numba's Python error model (an index or a division error raises);
+- ``byte_scanner``: the treebank scanners, batch builders and slice masks (data/, run/), integer
+  code over bytes, offsets and flags, keeping numba's Python error model (an index or a division error raises);
   ``inline=True`` for the tiny helpers called in their inner loops.
 
 Both keep compiled code on disk (``cache=True``): a new process loads instead of compiling.

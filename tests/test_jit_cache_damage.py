@@ -40,3 +40,17 @@ def test_unwritable_cache_directory_still_runs(tmp_path):
     result = run_probe(blocker / "cache")  # cannot be created, even by root
     assert result.returncode == 0, result.stderr
     assert result.stdout.strip() == "0.9"
+
+
+def test_numba_is_set_up_in_one_place():
+    # every compiled function takes its flags from jit_setup.py; the cache guard found numba's readers
+    from pathlib import Path
+
+    from rntn_engine import jit_setup
+
+    assert jit_setup.CACHE_GUARD_INSTALLED
+    package = Path(jit_setup.__file__).parent
+    pasted = [str(p.relative_to(package)) for p in package.rglob("*.py")
+              if p.name != "jit_setup.py" and ("njit" in p.read_text(encoding="utf-8")
+                                               or "numba.jit" in p.read_text(encoding="utf-8"))]
+    assert pasted == []

@@ -16,10 +16,11 @@ a row no minibatch touches keeps its value and its G bit for bit.
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+
+from rntn_engine.jit_setup import numeric_kernel
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def sum_of_squares(x):
     """sum_i x_i^2 in float64 over x (n,), with eight running sums (independent chains the CPU
     overlaps) added in a fixed order: deterministic, and about eight times faster than one chain."""
@@ -40,7 +41,7 @@ def sum_of_squares(x):
     return ((s0 + s1) + (s2 + s3)) + ((s4 + s5) + (s6 + s7))
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def adagrad_l2_step(theta, G, g, lam, lr, eps, update, flush_below):
     """The L2 term, the AdaGrad update and the zeroing of the gradient, over one parameter group.
 
@@ -71,7 +72,7 @@ def adagrad_l2_step(theta, G, g, lam, lr, eps, update, flush_below):
     return squares
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def word_rows_l2(values, theta, rows, anchor, lam):
     """The word-row L2 term of one minibatch, added to its gradient rows.
 
@@ -92,7 +93,7 @@ def word_rows_l2(values, theta, rows, anchor, lam):
     return squares
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def adagrad_l2_rows_step(theta, G, rows, values, anchor, lam, lr, eps, update, flush_below):
     """The word-row L2 term, the AdaGrad update and the zeroing of the gradient rows, in one pass.
 

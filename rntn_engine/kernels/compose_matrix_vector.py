@@ -44,10 +44,11 @@ vector models hold d.
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+
+from rntn_engine.jit_setup import numeric_kernel
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def forward_compose_mv(P, PM, X, Z, ABt, PMt, L, LM, W, b, WM, word, left, right, order, level_start):
     """Node vectors and node matrices of a whole batch, level by level.
 
@@ -95,7 +96,7 @@ def forward_compose_mv(P, PM, X, Z, ABt, PMt, L, LM, W, b, WM, word, left, right
                     PM[i, r, j] = PMt[m * d + j, r]
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def backward_compose_mv(dW, db, dWM, E, EM, Delta, EX, EPt, EABt, P, PM, X, ABt, W, WM, left, right, order,
                         level_start):
     """Gradients of W, b, WM, and errors down to the leaves' vectors and matrices.

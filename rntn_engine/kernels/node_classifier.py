@@ -23,10 +23,11 @@ unlabelled ones:
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+
+from rntn_engine.jit_setup import numeric_kernel
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def forward_classify(Y, S, P, Ws, bs, label, weight, scale):
     """Class probabilities of every node and the scaled, class-weighted cross-entropy loss.
 
@@ -57,7 +58,7 @@ def forward_classify(Y, S, P, Ws, bs, label, weight, scale):
     return loss * scale
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def backward_classify(dWs, dbs, E, dS, Y, P, Ws, label, weight, scale):
     """Gradients of the classifier and the error each node vector receives from its own classifier.
 

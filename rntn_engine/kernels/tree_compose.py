@@ -41,7 +41,8 @@ the tensor terms where the unsymmetrised form needs 24 d^3.
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+
+from rntn_engine.jit_setup import numeric_kernel
 
 from rntn_engine.kernels.tensor_term import (
     NODE_BLOCK,
@@ -54,7 +55,7 @@ from rntn_engine.kernels.tensor_term import (
 )
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def symmetric_tensor_layout(Vsym, V):
     """Vsym (D, d*D) out: Vsym[i, k*D + j] = V[k, i, j] + V[k, j, i].   V (d, D, D)."""
     d, D, _ = V.shape
@@ -64,7 +65,7 @@ def symmetric_tensor_layout(Vsym, V):
                 Vsym[i, k * D + j] = V[k, i, j] + V[k, j, i]
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_start, use_tensor,
                     own_rows, T):
     """Node vectors of a whole batch, level by level.
@@ -111,7 +112,7 @@ def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_s
                 P[i, k] = np.tanh(Z[m, k] + b[k])
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def backward_compose(dW, db, dT, E, Delta, EX, P, X, Q, U, W, left, right, order, level_start, use_tensor):
     """Gradients of W, b (and the pair-layout tensor gradient), and errors down to the leaves.
 

@@ -21,10 +21,11 @@ the result never depends on which thread, or which MPI rank, computed a chunk.
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+
+from rntn_engine.jit_setup import numeric_kernel
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def scatter_word_rows(values, E, slot, leaves):
     """values (n, w) += E[leaves[k]] at row slot[k], for k in order.
 
@@ -39,7 +40,7 @@ def scatter_word_rows(values, E, slot, leaves):
             values[j, c] += E[i, c]
 
 
-@njit(cache=True, nogil=True, parallel=False, fastmath=False, error_model="numpy")
+@numeric_kernel
 def add_word_rows(values, at, part):
     """values (n, w) += part (m, w) at rows at (m,) int64 of ``values`` (a chunk's rows into the minibatch's)."""
     width = part.shape[1]

@@ -10,14 +10,14 @@ mask (its root scores on the roots inside the mask).
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
 
 from rntn_engine.data.batches import EncodedTreebank, phrase_lengths
+from rntn_engine.jit_setup import byte_scanner
 from rntn_engine.run.scores import LabelScheme
 from rntn_engine.run.slice_definitions import SliceDefinition
 
 
-@njit(cache=True, nogil=True)
+@byte_scanner
 def phrases_containing(leaf_flag: np.ndarray, left: np.ndarray, right: np.ndarray, start: np.ndarray) -> np.ndarray:
     """(N,) bool: the node's phrase holds a flagged leaf. ``leaf_flag`` (N,) bool, False at internal nodes."""
     out = leaf_flag.copy()
@@ -29,7 +29,7 @@ def phrases_containing(leaf_flag: np.ndarray, left: np.ndarray, right: np.ndarra
     return out
 
 
-@njit(cache=True, nogil=True)
+@byte_scanner
 def opposite_children(side: np.ndarray, left: np.ndarray, right: np.ndarray, start: np.ndarray) -> np.ndarray:
     """(N,) bool: internal nodes whose children lie on opposite sides (``side`` (N,) -1, 0 or +1 per node)."""
     out = np.zeros(left.shape[0], dtype=np.bool_)
