@@ -68,7 +68,7 @@ def word_row_l2(L, anchor, used, lam):
     return 0.5 * lam * anp.sum((L[used] - anchor[used]) ** 2)
 
 
-def autograd_objective(theta, tree_arrays, tree_ids, l2, use_tensor, anchor, class_weights=None):
+def autograd_objective(theta, tree_arrays, tree_ids, l2, with_tensor, anchor, class_weights=None):
     """J written from the equations with autograd.numpy: per node, no in-place writes.
 
     The minibatch is the trees ``tree_ids``; the word-vector L2 term covers the distinct words
@@ -90,7 +90,7 @@ def autograd_objective(theta, tree_arrays, tree_ids, l2, use_tensor, anchor, cla
             else:
                 x = anp.concatenate([nodes[left[i]], nodes[right[i]]])
                 z = anp.dot(W, x) + b
-                if use_tensor:
+                if with_tensor:
                     z = z + anp.array([anp.dot(x, anp.dot(V[k], x)) for k in range(d)])
                 p = anp.tanh(z)
             nodes.append(p)
@@ -101,23 +101,23 @@ def autograd_objective(theta, tree_arrays, tree_ids, l2, use_tensor, anchor, cla
                 total = total - w * (s[label[i]] - anp.log(anp.sum(anp.exp(s - anp.max(s)))) - anp.max(s))
     reg = word_row_l2(L, anchor, np.array(sorted(used)), l2.words)
     reg = reg + 0.5 * (l2.compose * anp.sum(W ** 2) + l2.classifier * anp.sum(Ws ** 2))
-    if use_tensor:
+    if with_tensor:
         reg = reg + 0.5 * l2.tensor * anp.sum(V ** 2)
     return total / len(tree_ids) + reg
 
 
-def autograd_reference(params, bank, use_tensor, tree_ids=None, anchor=None, class_weights=None):
+def autograd_reference(params, bank, with_tensor, tree_ids=None, anchor=None, class_weights=None):
     """(loss, {name: gradient}) from autograd (HIPS), in float64, on copies of our parameters."""
     as64 = lambda a: np.array(a, dtype=np.float64)
-    V = as64(params.V) if use_tensor else np.zeros((1, 1, 1))
+    V = as64(params.V) if with_tensor else np.zeros((1, 1, 1))
     theta = (as64(params.L), as64(params.W), as64(params.b), V, as64(params.Ws), as64(params.bs))
     tree_arrays = (bank.word, bank.left, bank.right, bank.label, bank.start)
     tree_ids = list(range(bank.n_trees)) if tree_ids is None else list(tree_ids)
     anchor = np.zeros_like(theta[0]) if anchor is None else as64(anchor)
-    loss = autograd_objective(theta, tree_arrays, tree_ids, L2, use_tensor, anchor, class_weights)
-    grads = autograd.grad(autograd_objective)(theta, tree_arrays, tree_ids, L2, use_tensor, anchor, class_weights)
+    loss = autograd_objective(theta, tree_arrays, tree_ids, L2, with_tensor, anchor, class_weights)
+    grads = autograd.grad(autograd_objective)(theta, tree_arrays, tree_ids, L2, with_tensor, anchor, class_weights)
     named = dict(zip(["L", "W", "b", "V", "Ws", "bs"], grads))
-    if not use_tensor:
+    if not with_tensor:
         del named["V"]
     return loss, named
 

@@ -66,17 +66,18 @@ def symmetric_tensor_layout(Vsym, V):
 
 
 @numeric_kernel
-def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_start, use_tensor,
+def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_start, with_tensor,
                     own_rows, T):
     """Node vectors of a whole batch, level by level.
 
     P (N, d) out: node vectors.   X (M, D) out: children [p_l ; p_r] per internal node, in `order`.
-    Z (M, d) workspace: pre-activations.   Q (M, d*D) out: X Vsym (used only when use_tensor), kept
+    Z (M, d) workspace: pre-activations.   Q (M, d*D) out: X Vsym (used only when with_tensor), kept
     for the backward pass. Forward only, T (d, D(D+1)/2) is the tensor's pair layout and Q a
     workspace of (R, d*D + 4d): each level is done in blocks of R rows through the pair
     products (tensor_term.py), so memory does not grow with the batch; otherwise T is (0, 0).
     L (|V|, d); W (d, D); b (d,); Vsym (D, d*D); word/left/right (N,) int32;
-    order (M,) int32; level_start (H+1,) int32; use_tensor: RNTN if True, RNN if False.
+    order (M,) int32; level_start (H+1,) int32; with_tensor: add the tensor term (True for the RNTN,
+    False for the RNN: the model specification decides, model/rnn_model.py).
     own_rows: levels of at most this many nodes take the tensor term's own kernel, wider ones
     BLAS (kernels/tensor_term.py); 0: BLAS for every level.
     """
@@ -97,11 +98,11 @@ def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_s
                 X[m, k] = P[left[i], k]
                 X[m, d + k] = P[right[i], k]
         np.dot(X[a:z], W.T, Z[a:z])  # W x for the level: (n, D) x (D, d)
-        if use_tensor and T.shape[0] > 0:  # forward only: h from the pair products, in blocks of R rows
+        if with_tensor and T.shape[0] > 0:  # forward only: h from the pair products, in blocks of R rows
             work = Q.reshape(-1)
             for s in range(a, z, Q.shape[0]):
                 tensor_term_forward_pairs(Z, work, X, T, s, min(z, s + Q.shape[0]))
-        elif use_tensor:  # q_k = S[k] x into Q (kept for backward), then h_k = x . q_k / 2 into Z
+        elif with_tensor:  # q_k = S[k] x into Q (kept for backward), then h_k = x . q_k / 2 into Z
             if z - a <= own_rows:
                 tensor_term_forward_own(Z, Q, X, Vsym, hv, acc, a, z, a)
             else:
@@ -113,7 +114,7 @@ def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_s
 
 
 @numeric_kernel
-def backward_compose(dW, db, dT, E, Delta, EX, P, X, Q, U, W, left, right, order, level_start, use_tensor):
+def backward_compose(dW, db, dT, E, Delta, EX, P, X, Q, U, W, left, right, order, level_start, with_tensor):
     """Gradients of W, b (and the pair-layout tensor gradient), and errors down to the leaves.
 
     dW (d, D) += ; db (d,) += ; dT (d, D(D+1)/2) out: Delta^T U (RNTN; kernels/tensor_term.py) -- a
@@ -133,7 +134,7 @@ def backward_compose(dW, db, dT, E, Delta, EX, P, X, Q, U, W, left, right, order
             for k in range(d):
                 Delta[m, k] = E[i, k] * (1.0 - P[i, k] * P[i, k])
         np.dot(Delta[a:z], W, EX[a:z])  # W^T delta for the level: (n, d) x (d, D)
-        if use_tensor:  # + sum_k delta_k q_k
+        if with_tensor:  # + sum_k delta_k q_k
             tensor_term_input_gradient(EX, Delta, Q, a, z)
         for m in range(a, z):  # e_l += e_x[:d], e_r += e_x[d:]
             i = order[m]
@@ -143,12 +144,12 @@ def backward_compose(dW, db, dT, E, Delta, EX, P, X, Q, U, W, left, right, order
                 E[l, k] += EX[m, k]
                 E[r, k] += EX[m, d + k]
     if M == 0:
-        if use_tensor:
+        if with_tensor:
             dT[:, :] = 0.0
         return
     dW += np.dot(Delta.T, X)  # sum_m delta_m x_m^T: (d, M) x (M, D)
     for m in range(M):
         for k in range(d):
             db[k] += Delta[m, k]
-    if use_tensor:  # dT = Delta^T U, straight into the chunk's workspace (U may overwrite Q: done with it)
+    if with_tensor:  # dT = Delta^T U, straight into the chunk's workspace (U may overwrite Q: done with it)
         tensor_gradient_pairs(dT, U, X, Delta)
