@@ -60,8 +60,8 @@ class Network:
 
 
 # README "MPI": measured by scripts/bench_mpi.py, RNTN d = 50, float64 (update both together)
-README_COSTS = StepCosts(per_tree_s=0.798e-3, reduce_chunk_s=0.287e-3, adagrad_step_s=0.983e-3,
-                         message_bytes=4086928, unpack_chunk_s=0.305e-3, pack_chunk_s=0.299e-3)
+README_COSTS = StepCosts(per_tree_s=0.686e-3, reduce_chunk_s=0.373e-3, adagrad_step_s=1.002e-3,
+                         message_bytes=2103664, unpack_chunk_s=0.164e-3, pack_chunk_s=0.158e-3)
 NETWORKS = (
     Network("100 Gb/s InfiniBand-class (10 GB/s, 2 us)", 10e9, 2e-6),
     Network("10 Gb/s Ethernet (1.1 GB/s, 30 us)", 1.1e9, 30e-6),
