@@ -43,14 +43,25 @@ def test_unwritable_cache_directory_still_runs(tmp_path):
 
 
 def test_numba_is_set_up_in_one_place():
-    # every compiled function takes its flags from jit_setup.py; the cache guard found numba's readers
+    # every compiled function takes its flags from jit_setup.py, which touches no numba internals
     from pathlib import Path
 
     from rntn_engine import jit_setup
 
-    assert jit_setup.CACHE_GUARD_INSTALLED
+    assert "numba.core" not in Path(jit_setup.__file__).read_text(encoding="utf-8")
     package = Path(jit_setup.__file__).parent
     pasted = [str(p.relative_to(package)) for p in package.rglob("*.py")
               if p.name != "jit_setup.py" and ("njit" in p.read_text(encoding="utf-8")
                                                or "numba.jit" in p.read_text(encoding="utf-8"))]
     assert pasted == []
+
+
+def test_only_incomplete_pickles_count_as_damaged():
+    import pickle
+
+    from rntn_engine.jit_setup import complete_pickles
+
+    index = pickle.dumps("0.68.1") + pickle.dumps((1.5, {"sig": "file.1.nbc"}))  # the two pickles of an index
+    assert complete_pickles(index) == 2 and complete_pickles(pickle.dumps(b"x" * 1000)) == 1
+    assert complete_pickles(index[:-1]) == -1 and complete_pickles(index[:7]) == -1
+    assert complete_pickles(b"not a pickle") == -1 and complete_pickles(b"") == 0
