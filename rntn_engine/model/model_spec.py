@@ -23,6 +23,7 @@ from __future__ import annotations
 
 from abc import ABC, abstractmethod
 from dataclasses import dataclass, field, fields
+from functools import cache
 from typing import TYPE_CHECKING, Callable, ClassVar
 
 import numpy as np
@@ -64,7 +65,7 @@ the classifier's Y, S and dS.
 
     def resize(self, sizes: dict[str, tuple[int, int]]) -> None:
         """Make each named field a (rows, cols) view; ``sizes`` names fields of this class only."""
-        known = {f.name for f in fields(self)} - {"dtype", "_store"}
+        known = _buffer_names(type(self))
         for name, (rows, cols) in sizes.items():
             if name not in known:
                 raise AttributeError(f"{type(self).__name__} has no activation buffer {name!r}")
@@ -73,6 +74,12 @@ the classifier's Y, S and dS.
                 buf = np.empty((max(rows, MIN_ROWS), cols), dtype=self.dtype)
                 self._store[name] = buf
             setattr(self, name, buf[:rows])
+
+
+@cache
+def _buffer_names(kind: type[Activations]) -> frozenset[str]:
+    """The activation buffers a class declares (its np.ndarray fields), worked out once per class."""
+    return frozenset(f.name for f in fields(kind)) - {"dtype", "_store"}
 
 
 class ModelSpec(ABC):
@@ -87,7 +94,7 @@ class ModelSpec(ABC):
     parameters: ClassVar[tuple[str, ...]]  # symbols in PARAMETERS, in the order of the flat buffer
     activations: ClassVar[type[Activations]]
     # dense parameters whose chunk gradient is not a plain sum of a per-chunk array (the RNTN's V,
-    # reduced from its layout gradient by add_layout_gradient)
+    # reduced from its layout gradient by add_layout_gradients)
     reduced_from_layout: ClassVar[tuple[str, ...]] = ()
 
     def __init__(self, shape: ModelShape) -> None:
@@ -142,14 +149,10 @@ class ModelSpec(ABC):
         """Shape of a chunk's extra gradient buffer ((0, 0): none)."""
         return (0, 0)
 
-    def add_layout_gradient(self, grads: dict[str, np.ndarray], layout_grad: np.ndarray) -> None:
-        """Add one chunk's extra gradient to the minibatch's arrays in ``grads`` (called in chunk order)."""
-
     def add_layout_gradients(self, grads: dict[str, np.ndarray], layout_grads: list[np.ndarray],
                              run_parts: PartRunner = run_in_order) -> None:
-        """Add every chunk's extra gradient, in chunk order for every element (``run_parts`` as in prepare)."""
-        for layout_grad in layout_grads:
-            self.add_layout_gradient(grads, layout_grad)
+        """Add every chunk's extra gradient to the minibatch's arrays in ``grads``, in chunk order for
+        every element (``run_parts`` as in prepare); nothing for a model without one."""
 
 
 # --- draws shared by the models (model/parameters.py lists the distributions) -------------------------

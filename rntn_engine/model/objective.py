@@ -189,13 +189,11 @@ class TreeModelObjective:
             self._pool.shutdown()
             self._pool = None
 
-    def _run_parts(self, work, parts: list) -> None:
-        """work(part) for every part, on the worker threads when there are any (model_spec.PartRunner)."""
+    def _run_parts(self, work, parts: list) -> list:
+        """[work(part) for every part], on the worker threads when there are any (model_spec.PartRunner)."""
         if self._pool is not None and len(parts) > 1:
-            list(self._pool.map(work, parts))
-        else:
-            for part in parts:
-                work(part)
+            return list(self._pool.map(work, parts))
+        return [work(part) for part in parts]
 
     # --- one chunk: forward (and backward) with the serial kernels -------------------------------
 
@@ -256,11 +254,7 @@ class TreeModelObjective:
                 own.rows[name].reset(rows)
                 scatter_word_rows(own.rows[name].values, errors, slot, batch.leaves)
 
-        if self._pool is not None and len(mine) > 1:
-            list(self._pool.map(run, mine))
-        else:
-            for k in mine:
-                run(k)
+        self._run_parts(run, mine)
         if ranks > 1:  # every rank gets every chunk's share: (chunk, size, packed gradient) for each of mine
             sizes = [self._chunk_grads[k].packed_size() for k in mine]
             packed = np.empty(sum(16 + size for size in sizes), dtype=np.uint8)
@@ -347,9 +341,7 @@ class TreeModelObjective:
             loss = self._forward_chunk(params, chunks[k], acts, 1.0, keep_for_backward=False, weights=self._ones)
             return loss, acts.Y
 
-        if self._pool is not None and len(chunks) > 1:
-            return list(self._pool.map(run, range(len(chunks))))
-        return [run(k) for k in range(len(chunks))]
+        return self._run_parts(run, list(range(len(chunks))))
 
     def loss(self, params: Parameters, chunks: list[FlatBatch]) -> float:
         """J of the minibatch without the gradient (the forward-only twin of loss_and_gradient)."""

@@ -70,9 +70,6 @@ class TensorNetwork(RecursiveNetwork):
     def layout_gradient_shape(self) -> tuple[int, ...]:
         return self.pairs.shape  # (d, D(D+1)/2): dT of kernels/tensor_term.py
 
-    def add_layout_gradient(self, grads, layout_grad: np.ndarray) -> None:
-        add_pair_layout_gradient(grads["V"], layout_grad)
-
     def add_layout_gradients(self, grads, layout_grads: list[np.ndarray], run_parts: PartRunner = run_in_order) -> None:
 
         def work(k: tuple[int, int]) -> None:  # dV[k] for k in the range, chunk after chunk
