@@ -80,3 +80,13 @@ def test_tensor_term_bench_runs_tiny(capsys):
                  "--trees", "30"])
     out = capsys.readouterr().out
     assert "d=3 float64" in out and "level / node" in out
+
+
+def test_vector_math_bench_runs_tiny(capsys):
+    spec = importlib.util.spec_from_file_location("rntn_bench_vm", SCRIPT.parent / "bench_vector_math.py")
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    rows = module.main(["--lengths", "7", "--rounds", "1"])
+    assert [(r["dtype"], r["length"]) for r in rows] == [("float32", 7), ("float64", 7)]
+    assert all(r[k] > 0 for r in rows for k in ("tanh_own", "tanh_library", "exp_own", "exp_library"))
+    assert "tanh own" in capsys.readouterr().out

@@ -46,6 +46,7 @@ from __future__ import annotations
 import numpy as np
 
 from rntn_engine.jit_setup import numeric_kernel
+from rntn_engine.kernels.vector_math import tanh_bias_rows
 
 
 @numeric_kernel
@@ -53,7 +54,7 @@ def forward_compose_mv(P, PM, X, Z, ABt, PMt, L, LM, W, b, WM, word, left, right
     """Node vectors and node matrices of a whole batch, level by level.
 
     P (N, d) out: node vectors.   PM (N, d, d) out: node matrices.
-    X (M, D) out: [B a ; A b] per internal node, in `order`.   Z (M, d) workspace: pre-activations.
+    X (M, D) out: [B a ; A b] per internal node, in `order`.   Z (M, d) workspace: pre-activations, then p.
     ABt (M*d, D) out: children's matrices stacked transposed (module docstring).   PMt (M*d, d) workspace.
     L (|V|, d); LM (|V|, d, d); W (d, D); b (d,); WM (d, D); word/left/right (N,) int32;
     order (M,) int32; level_start (H+1,) int32.
@@ -87,10 +88,9 @@ def forward_compose_mv(P, PM, X, Z, ABt, PMt, L, LM, W, b, WM, word, left, right
                     ABt[m * d + j, d + k] = PM[rc, k, j]
         np.dot(X[a:z], W.T, Z[a:z])  # W x for the level: (n, D) x (D, d)
         np.dot(ABt[a * d : z * d], WM.T, PMt[a * d : z * d])  # P^T = [A ; B]^T WM^T: (n*d, D) x (D, d)
-        for m in range(a, z):  # p = tanh(W x + b);  P[r, j] = PMt[m*d + j, r]
+        tanh_bias_rows(P, Z, b, order, a, z)  # p = tanh(W x + b)
+        for m in range(a, z):  # P[r, j] = PMt[m*d + j, r]
             i = order[m]
-            for r in range(d):
-                P[i, r] = np.tanh(Z[m, r] + b[r])
             for j in range(d):
                 for r in range(d):
                     PM[i, r, j] = PMt[m * d + j, r]

@@ -25,6 +25,7 @@ from __future__ import annotations
 import numpy as np
 
 from rntn_engine.jit_setup import numeric_kernel
+from rntn_engine.kernels.vector_math import exp_nonpositive
 
 
 @numeric_kernel
@@ -38,22 +39,31 @@ def forward_classify(Y, S, P, Ws, bs, label, weight, scale):
     """
     N, C = Y.shape
     np.dot(P, Ws.T, S)  # (N, d) x (d, C) -> (N, C)
-    loss = 0.0
-    for i in range(N):
+    for i in range(N):  # s += bs; Y = s - max(s), row by row
         top = -np.inf
         for c in range(C):
             S[i, c] += bs[c]
             if S[i, c] > top:
                 top = S[i, c]
+        for c in range(C):
+            Y[i, c] = S[i, c] - top
+    flat = Y.reshape(-1)
+    for j in range(flat.shape[0]):  # Y = exp(s - max(s)), one flat loop (kernels/vector_math.py)
+        flat[j] = exp_nonpositive(np.float64(flat[j]))
+    loss = 0.0
+    for i in range(N):
         total = 0.0
         for c in range(C):
-            Y[i, c] = np.exp(S[i, c] - top)
             total += Y[i, c]
         for c in range(C):
             Y[i, c] /= total
         t = label[i]
         if t >= 0:
             # -log softmax(s)[t] = log(sum exp(s - top)) + top - s[t], exact even when y[t] underflows
+            top = S[i, 0]
+            for c in range(1, C):
+                if S[i, c] > top:
+                    top = S[i, c]
             loss += weight[t] * (np.log(total) + top - S[i, t])
     return loss * scale
 

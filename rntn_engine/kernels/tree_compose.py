@@ -53,6 +53,7 @@ from rntn_engine.kernels.tensor_term import (
     tensor_term_forward_pairs,
     tensor_term_input_gradient,
 )
+from rntn_engine.kernels.vector_math import tanh_bias_rows
 
 
 @numeric_kernel
@@ -71,7 +72,8 @@ def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_s
     """Node vectors of a whole batch, level by level.
 
     P (N, d) out: node vectors.   X (M, D) out: children [p_l ; p_r] per internal node, in `order`.
-    Z (M, d) workspace: pre-activations.   Q (M, d*D) out: X Vsym (used only when with_tensor), kept
+    Z (M, d) workspace: pre-activations, then the level's p (kernels/vector_math.py).
+    Q (M, d*D) out: X Vsym (used only when with_tensor), kept
     for the backward pass. Forward only, T (d, D(D+1)/2) is the tensor's pair layout and Q a
     workspace of (R, d*D + 4d): each level is done in blocks of R rows through the pair
     products (tensor_term.py), so memory does not grow with the batch; otherwise T is (0, 0).
@@ -107,10 +109,7 @@ def forward_compose(P, X, Z, Q, L, W, b, Vsym, word, left, right, order, level_s
                 tensor_term_forward_own(Z, Q, X, Vsym, hv, acc, a, z, a)
             else:
                 tensor_term_forward_blas(Z, Q, X, Vsym, hv, a, z, a)
-        for m in range(a, z):  # p = tanh(W x + b + h)
-            i = order[m]
-            for k in range(d):
-                P[i, k] = np.tanh(Z[m, k] + b[k])
+        tanh_bias_rows(P, Z, b, order, a, z)  # p = tanh(W x + b + h)
 
 
 @numeric_kernel

@@ -44,7 +44,7 @@ class MatrixVectorActivations(Activations):
 
     PM: np.ndarray = field(default=None)  # (N, d*d) node matrices, row i = P of node i
     X: np.ndarray = field(default=None)  # (M, D) [B a ; A b] of each internal node
-    Z: np.ndarray = field(default=None)  # (M, d) pre-activations
+    Z: np.ndarray = field(default=None)  # (M, d) pre-activations, then the internal nodes' p
     ABt: np.ndarray = field(default=None)  # (M*d, D) children's matrices, stacked transposed
     PMt: np.ndarray = field(default=None)  # (M*d, d) a level's P^T
     EM: np.ndarray = field(default=None)  # (N, d*d) error reaching each node matrix

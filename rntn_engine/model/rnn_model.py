@@ -41,7 +41,7 @@ class VectorActivations(Activations):
     """Buffers of the vector models (RNN, RNTN), beyond the shared P, Y, S, E, dS."""
 
     X: np.ndarray = field(default=None)  # (M, D) children [p_l ; p_r] of each internal node
-    Z: np.ndarray = field(default=None)  # (M, d) pre-activations
+    Z: np.ndarray = field(default=None)  # (M, d) pre-activations, then the internal nodes' p
     Q: np.ndarray = field(default=None)  # (M, d*D + d) X Vsym kept for backward, then the pair products
     # (RNTN; forward only (R, d*D + 4d), the pair products' workspace; (0, 0) for the RNN)
     Delta: np.ndarray = field(default=None)  # (M, d) error at the pre-activations
