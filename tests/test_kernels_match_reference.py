@@ -103,7 +103,7 @@ def test_forward_only_in_blocks_of_rows_equals_the_reference(monkeypatch, rows):
     # forward-only passes reuse a block of `rows` rows for the tensor term, level by level
     import rntn_engine.model.rnn_model as rnn_model
 
-    monkeypatch.setattr(rnn_model, "FORWARD_Q_ROWS", rows)
+    monkeypatch.setattr(rnn_model, "FORWARD_BLOCKS", ((None, rows),))
     params, bank, _, full, _ = engine_case("rntn", "float64", dim=4, seed=2, param_scale=2.0)
     P, Y, loss = reference_forward(params.L, params.W, params.b, params.V, params.Ws, params.bs,
                                    full.word, full.left, full.right, full.label, 1.0)

@@ -29,11 +29,34 @@ if TYPE_CHECKING:
     from rntn_engine.data.batches import FlatBatch
     from rntn_engine.model.parameters import ModelShape, Parameters
 
-# forward-only passes compute the tensor term in blocks of this many nodes (the pair products' workspace:
-# 1.4 MB at d = 25 float64). Evaluation of the bench corpus, best of 2-3 runs each on the shared machine
-# (2026-12-02): 128 rows 22,700 / 39,300 / 7,900 trees/s at d = 25 float64 / 25 float32 / 50 float32,
-# 512 rows 20,000 / 29,200 / 6,600.
-FORWARD_Q_ROWS = 128
+# Forward-only passes compute the tensor term in blocks of rows (nodes of one level), one workspace
+# reused block after block (kernels/tensor_term.py, tensor_term_forward_pairs); the best block depends
+# on the size of the tensor's pair layout T (d x D(D+1)/2 numbers), streamed once per block: while T
+# is small the block should be too, once it is large it must be amortised over more rows. The first
+# (largest T in bytes, rows) whose limit T does not exceed gives the rows. Chosen from evaluation of
+# the bench corpus (`python scripts/bench.py` corpus, 4,000 trees, 1 thread; trees/s, two runs each;
+# 2026-12-02, this project's shared 2-core machine, 2 MB L2 a core):
+#   d = 25 float32 (T 128 KiB):  8: 28.0k/27.0k  12: 30.5k/28.7k  16: 36.9k/36.3k  24: 35.1k/35.3k  32: 32.8k/32.3k
+#                                128: 35.1k/35.3k
+#   d = 25 float64 (T 255 KiB):  8: 21.3k/23.5k  12: 19.9k/21.8k  16: 25.0k/27.4k  24: 23.8k/24.9k  128: 20.3k/20.4k
+#   d = 32 float32 (T 260 KiB):  16: 16.8k/16.6k  64: 21.0k/21.5k  128: 20.9k/20.4k
+#   d = 32 float64 (T 520 KiB):  16: 10.4k/10.3k  64: 11.6k/11.8k  128: 10.7k/11.0k
+#   d = 40 float32 (T 505 KiB):  16:  9.8k/10.0k  64: 13.1k/13.1k  128: 12.6k/12.4k
+#   d = 40 float64 (T 1010 KiB): 16:  5.8k/5.8k   64:  6.4k/6.2k   128:  6.4k/6.4k
+#   d = 50 float32 (T 986 KiB):  16:  5.5k/5.5k   64:  7.1k/7.1k   128:  6.9k/7.0k  256: 6.6k/6.4k
+#   d = 50 float64 (T 1.9 MiB):  64:  3.7k/3.6k  128:  3.8k/4.0k  256: 4.0k/4.0k
+# Blocks of 16 fill whole SIMD vectors in the pair products' loop over a block's nodes (16 float32
+# or 2 x 8 float64); 12 or 20 leave a remainder and were slower than 8 or 16.
+FORWARD_BLOCKS = ((256 * 1024, 16), (1024 * 1024, 64), (None, 128))
+
+
+def forward_block_rows(d: int, itemsize: int) -> int:
+    """Rows of a forward-only block of the tensor term for vectors of size d (FORWARD_BLOCKS)."""
+    pair_layout_bytes = d * (2 * d) * (2 * d + 1) // 2 * itemsize
+    for limit, rows in FORWARD_BLOCKS:
+        if limit is None or pair_layout_bytes <= limit:
+            return rows
+    return FORWARD_BLOCKS[-1][1]
 
 
 @dataclass
@@ -69,7 +92,7 @@ class RecursiveNetwork(ModelSpec):
         d = self.shape.dim
         D = 2 * d
         # Q: X Vsym of every internal node; forward only, a block of rows of the pair products' workspace
-        q = (n_internal * (d * D + d) if backward else min(n_internal, FORWARD_Q_ROWS) * (d * D + 4 * d)) \
+        q = (n_internal * (d * D + d) if backward else min(n_internal, self._block_rows()) * (d * D + 4 * d)) \
             if self.with_tensor else 0
         numbers = n_nodes * d + n_internal * (D + d) + q
         return numbers + (n_nodes * d + n_internal * (d + D) if backward else 0)
@@ -86,7 +109,7 @@ class RecursiveNetwork(ModelSpec):
         # level as the pair products' workspace (kernels/tensor_term.py, tensor_term_forward_pairs)
         # With backward: Q's buffer holds d*D + d numbers a node, X Vsym in the first d*D a node (row
         # after row), then the pair products U (M, D(D+1)/2) of the tensor's gradient (backward_compose).
-        q_rows = (M if keep_for_backward else min(M, FORWARD_Q_ROWS)) if self.with_tensor else 0
+        q_rows = (M if keep_for_backward else min(M, self._block_rows())) if self.with_tensor else 0
         q_cols = (d * D + d if keep_for_backward else d * D + 4 * d) if self.with_tensor else 0
         acts.resize({"P": (N, d), "X": (M, D), "Z": (M, d), "Q": (q_rows, q_cols)})
         pairs = self._no_pairs if keep_for_backward or not self.with_tensor else self.pairs
@@ -104,6 +127,9 @@ class RecursiveNetwork(ModelSpec):
         U = acts.Q.reshape(-1)[: M * (d * D + d)].reshape(M, d * D + d) if self.with_tensor else acts.Q
         backward_compose(grads["W"], grads["b"], layout_grad, acts.E, acts.Delta, acts.EX, acts.P, acts.X, Q, U,
                          params.W, batch.left, batch.right, batch.order, batch.level_start, self.with_tensor)
+
+    def _block_rows(self) -> int:
+        return forward_block_rows(self.shape.dim, np.dtype(self.shape.dtype).itemsize)
 
     def _q_view(self, acts: VectorActivations, M: int) -> np.ndarray:
         """(M, d*D) X Vsym, at the start of Q's buffer (see forward)."""
