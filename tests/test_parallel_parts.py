@@ -26,7 +26,7 @@ def test_dense_adagrad_in_parts_equals_one_pass():
     for threads in (1, 2):
         optimiser = AdaGrad(init_parameters(ModelShape("rnn", 3, 2, 2, "float64"), rng), 0.05, threads=threads)
         theta, G, g = theta0.copy(), G0.copy(), g0.copy()
-        squares = optimiser._dense_step(theta, G, g, np.float64(1e-3), True, 0.0)
+        squares = optimiser._dense_step(theta, G, g, np.float64(1e-3), 0.05, 1e-6, True, 0.0)
         optimiser.close()
         results.append((theta, G, g, squares))
     theta, G, g = theta0.copy(), G0.copy(), g0.copy()

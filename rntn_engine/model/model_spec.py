@@ -152,7 +152,8 @@ class ModelSpec(ABC):
     def add_layout_gradients(self, grads: dict[str, np.ndarray], layout_grads: list[np.ndarray],
                              run_parts: PartRunner = run_in_order) -> None:
         """Add every chunk's extra gradient to the minibatch's arrays in ``grads``, in chunk order for
-        every element (``run_parts`` as in prepare); nothing for a model without one."""
+        every element (``run_parts`` as in prepare); nothing for a model without one. The chunks'
+        buffers are scratch, rewritten every step: this may sum them into the first one."""
 
 
 # --- draws shared by the models (model/parameters.py lists the distributions) -------------------------
