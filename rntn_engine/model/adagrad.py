@@ -20,13 +20,12 @@ order, so the result is bitwise the same for any number of threads.
 
 from __future__ import annotations
 
-from concurrent.futures import ThreadPoolExecutor
-
 import numpy as np
 
 from rntn_engine.kernels.adagrad_step import adagrad_l2_rows_step, adagrad_l2_step
 from rntn_engine.model.objective import L2Strengths
 from rntn_engine.model.parameters import L2_GROUP, Gradient, Parameters
+from rntn_engine.model.part_threads import PartThreads
 
 # Dense groups this large (the tensor V from d = 32 on) are updated in DENSE_PARTS pieces on the
 # worker threads: at d = 50 the serial update of V was about 5% of a 1-thread step (1.3 ms of a
@@ -49,13 +48,11 @@ class AdaGrad:
         self.eps = float(eps)
         self.frozen = tuple(frozen)
         self.sums = params.zeros_like()  # G, same layout as the parameters
-        self._pool = ThreadPoolExecutor(threads) if threads > 1 else None
+        self._threads = PartThreads(threads)
 
     def close(self) -> None:
         """Stop the worker threads (the optimiser still works afterwards, on the calling thread)."""
-        if self._pool is not None:
-            self._pool.shutdown()
-            self._pool = None
+        self._threads.close()
 
     def step(self, params: Parameters, grads: Gradient) -> None:
         """One update of ``params`` in place from ``grads`` (whose L2 term, if any, is already in)."""
@@ -113,8 +110,7 @@ class AdaGrad:
             a, z = cuts[p], cuts[p + 1]
             return adagrad_l2_step(theta[a:z], G[a:z], g[a:z], lam, lr, eps, update, flush_below)
 
-        parts = list(self._pool.map(part, range(DENSE_PARTS))) if self._pool is not None else \
-            [part(p) for p in range(DENSE_PARTS)]
+        parts = self._threads.run(part, list(range(DENSE_PARTS)))
         squares = 0.0
         for value in parts:  # in part order
             squares += value

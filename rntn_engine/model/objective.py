@@ -43,7 +43,6 @@ everything else here is shared by every model.
 
 from __future__ import annotations
 
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -57,6 +56,7 @@ from rntn_engine.kernels.node_classifier import backward_classify, forward_class
 from rntn_engine.kernels.word_rows import add_word_rows, scatter_word_rows, touched_rows
 from rntn_engine.model.model_registry import model_spec
 from rntn_engine.model.model_spec import Activations
+from rntn_engine.model.part_threads import PartThreads
 from rntn_engine.model.parameters import L2_GROUP, L2_GROUPS, WORD_ROW_NAMES, Gradient, Parameters, WordRows
 
 
@@ -176,7 +176,7 @@ class TreeModelObjective:
         self._chunk_names = [name for name in params.names()
                              if name not in WORD_ROW_NAMES and name not in self.model.reduced_from_layout]
         self._chunk_grads: list[ChunkGradient] = []
-        self._pool = ThreadPoolExecutor(self.threads) if self.threads > 1 else None
+        self._threads = PartThreads(self.threads)
         # Parallelism comes from chunks on our own threads; BLAS inside them runs single-threaded
         # (nested BLAS threads on top of ours ran many times slower when measured).
         self._blas_limit = threadpool_limits(limits=1, user_api="blas")
@@ -185,15 +185,11 @@ class TreeModelObjective:
         if self._blas_limit is not None:
             self._blas_limit.restore_original_limits()
             self._blas_limit = None
-        if self._pool is not None:
-            self._pool.shutdown()
-            self._pool = None
+        self._threads.close()
 
     def _run_parts(self, work, parts: list) -> list:
         """[work(part) for every part], on the worker threads when there are any (model_spec.PartRunner)."""
-        if self._pool is not None and len(parts) > 1:
-            return list(self._pool.map(work, parts))
-        return [work(part) for part in parts]
+        return self._threads.run(work, parts)
 
     # --- one chunk: forward (and backward) with the serial kernels -------------------------------
 
