@@ -179,7 +179,7 @@ bank = encode_treebank(trees, vocab)
 params = init_parameters(ModelShape("rntn", len(vocab), int(sys.argv[2]), 5, sys.argv[3]), np.random.default_rng(0))
 grads = Gradient(params.shape)
 objective = TreeModelObjective(params)
-objective.loss_and_gradient(params, grads, split_into_chunks(bank, np.arange(27), 2))
+objective.loss_and_gradient(params, grads, split_into_chunks(bank, np.arange(16), 2))  # the trainer's default minibatch
 AdaGrad(params, 0.01).step(params, grads)
 print(time.perf_counter() - t0)
 """
@@ -239,8 +239,10 @@ def main(argv: list[str] | None = None) -> dict:
     parser.add_argument("--dims", type=int, nargs="+", default=[25, 50])
     parser.add_argument("--dtypes", nargs="+", default=["float32", "float64"])
     parser.add_argument("--threads", type=int, nargs="+", default=sorted({1, os.cpu_count() or 1}))
-    parser.add_argument("--batch-size", type=int, default=27)
-    parser.add_argument("--chunks", type=int, default=2, help="grad_chunks of the objective")
+    parser.add_argument("--batch-size", type=int, default=TrainConfig().batch_size,
+                        help="trees per minibatch (default: the trainer's own default, what a run uses)")
+    parser.add_argument("--chunks", type=int, default=TrainConfig().grad_chunks,
+                        help="grad_chunks of the objective (default: the trainer's)")
     parser.add_argument("--steps", type=int, default=10**9, help="timed minibatches per pass (default: a full epoch)")
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--matmul-size", type=int, default=1024)
