@@ -18,6 +18,7 @@ from __future__ import annotations
 import numpy as np
 
 from rntn_engine.jit_setup import numeric_kernel
+from rntn_engine.kernels.cache_hints import ROWS_AHEAD, prefetch_row
 
 
 @numeric_kernel
@@ -109,7 +110,11 @@ def adagrad_l2_rows_step(theta, G, rows, values, anchor, lam, lr, eps, update, f
     """
     anchored = anchor.shape[0] > 0
     squares = 0.0
-    for j in range(rows.shape[0]):
+    n = rows.shape[0]
+    for j in range(n):
+        if j + ROWS_AHEAD < n:  # scattered rows: ask for a later one now (kernels/cache_hints.py)
+            prefetch_row(theta, rows[j + ROWS_AHEAD])
+            prefetch_row(G, rows[j + ROWS_AHEAD])
         r = rows[j]
         for c in range(theta.shape[1]):
             t = theta[r, c]
