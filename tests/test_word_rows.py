@@ -154,3 +154,25 @@ def test_frozen_word_vectors_stay_and_their_gradient_rows_are_zeroed():
     assert np.array_equal(params.L, start.L) and not opt.sums.L.any()
     assert not grads.rows["L"].values.any()
     assert not np.array_equal(params.W, start.W)
+
+
+def test_chunk_word_rows_and_the_merged_add_against_numpy():
+    # twin: np.unique with return_inverse (NumPy), and np.add.at at np.searchsorted positions
+    from rntn_engine.kernels.word_rows import add_word_rows, chunk_word_rows
+
+    rng = np.random.default_rng(21)
+    word = rng.integers(0, 40, 300).astype(np.int32)
+    leaves = np.sort(rng.choice(300, 120, replace=False)).astype(np.int32)
+    rows, slot = chunk_word_rows(word, leaves)
+    expected_rows, inverse = np.unique(word[leaves], return_inverse=True)
+    assert rows.dtype == np.int64 and np.array_equal(rows, expected_rows) and np.array_equal(slot, inverse)
+    empty_rows, empty_slot = chunk_word_rows(word, leaves[:0])
+    assert empty_rows.size == 0 and empty_slot.size == 0
+
+    all_rows = np.union1d(rows, [3, 41, 77]).astype(np.int64)
+    values = rng.standard_normal((all_rows.size, 5))
+    part = rng.standard_normal((rows.size, 5))
+    expected = values.copy()
+    np.add.at(expected, np.searchsorted(all_rows, rows), part)
+    add_word_rows(values, all_rows, rows, part)
+    assert np.array_equal(values, expected)

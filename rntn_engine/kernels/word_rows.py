@@ -13,8 +13,8 @@ the minibatch receive anything, so the gradient is kept as those rows only:
     slot   per leaf, the j with rows[j] = word of the leaf
 
 and ``scatter_word_rows`` adds each leaf's error to ``values[slot]``, in leaf order. Each
-chunk of a minibatch first sums its own leaves into rows of its own (its distinct words);
-``add_word_rows`` then adds the chunks' rows into the minibatch's rows in chunk order, so
+chunk of a minibatch first sums its own leaves into rows of its own (its distinct words and
+the slots, ``chunk_word_rows``); ``add_word_rows`` then adds the chunks' rows into the minibatch's rows in chunk order, so
 the result never depends on which thread, or which MPI rank, computed a chunk.
 """
 
@@ -41,13 +41,41 @@ def scatter_word_rows(values, E, slot, leaves):
 
 
 @numeric_kernel
-def add_word_rows(values, at, part):
-    """values (n, w) += part (m, w) at rows at (m,) int64 of ``values`` (a chunk's rows into the minibatch's)."""
-    width = part.shape[1]
-    for j in range(part.shape[0]):
-        r = at[j]
+def chunk_word_rows(word, leaves):
+    """A chunk's distinct leaf words and each leaf's row among them, in one compiled pass.
+
+    word (N,) int32 word id of each node; leaves (K,) int32 node index of each leaf.
+    Returns rows (n,) int64, the distinct words ascending, and slot (K,) int64 with
+    rows[slot[k]] = word[leaves[k]].
+    """
+    K = leaves.shape[0]
+    words = np.empty(K, dtype=np.int64)
+    for k in range(K):
+        words[k] = word[leaves[k]]
+    order = np.argsort(words)
+    slot = np.empty(K, dtype=np.int64)
+    rows = np.empty(K, dtype=np.int64)
+    n = 0
+    for t in range(K):
+        k = order[t]
+        if n == 0 or words[k] != rows[n - 1]:
+            rows[n] = words[k]
+            n += 1
+        slot[k] = n - 1
+    return rows[:n].copy(), slot
+
+
+@numeric_kernel
+def add_word_rows(values, rows, part_rows, part_values):
+    """values (n, w) += part_values (m, w) at the rows where rows == part_rows (both ascending, distinct,
+    part_rows a subset of rows): a chunk's rows into the minibatch's, the positions found by one merge."""
+    width = part_values.shape[1]
+    r = 0
+    for j in range(part_rows.shape[0]):
+        while rows[r] != part_rows[j]:
+            r += 1
         for c in range(width):
-            values[r, c] += part[j, c]
+            values[r, c] += part_values[j, c]
 
 
 def touched_rows(leaf_words: list[np.ndarray]) -> np.ndarray:
@@ -58,7 +86,7 @@ def touched_rows(leaf_words: list[np.ndarray]) -> np.ndarray:
     if words.size < 2:
         return words
     # np.unique does the same in about 5x the time on a minibatch's few hundred words (numpy 2.4,
-    # measured); this runs twice a chunk every step
+    # measured)
     keep = np.empty(words.size, dtype=bool)
     keep[0] = True
     np.not_equal(words[1:], words[:-1], out=keep[1:])

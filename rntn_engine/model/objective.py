@@ -53,7 +53,7 @@ from rntn_engine.data.batches import EncodedTreebank, FlatBatch, make_batch
 from rntn_engine.kernels.adagrad_step import word_rows_l2
 from rntn_engine.kernels.chunk_balance import LEVEL_WORK, NODE_WORK, balanced_cuts, tree_shapes
 from rntn_engine.kernels.node_classifier import backward_classify, forward_classify
-from rntn_engine.kernels.word_rows import add_word_rows, scatter_word_rows, touched_rows
+from rntn_engine.kernels.word_rows import add_word_rows, chunk_word_rows, scatter_word_rows, touched_rows
 from rntn_engine.model.model_registry import model_spec
 from rntn_engine.model.model_spec import Activations
 from rntn_engine.model.part_threads import PartThreads
@@ -243,9 +243,7 @@ class TreeModelObjective:
             own.flat[:] = 0  # this chunk's own sums start from zero
             acts = self._slot(k)
             own.loss = self._gradient_chunk(params, own.views, own.layout, batch, acts, scale)
-            leaf_words = batch.word[batch.leaves]
-            rows = touched_rows([leaf_words])
-            slot = np.searchsorted(rows, leaf_words)  # each leaf's row among the chunk's rows
+            rows, slot = chunk_word_rows(batch.word, batch.leaves)  # the chunk's words; each leaf's row among them
             for name, errors in self.model.word_errors(acts).items():  # (N, width): a leaf's row is dL[w]
                 own.rows[name].reset(rows)
                 scatter_word_rows(own.rows[name].values, errors, slot, batch.leaves)
@@ -279,7 +277,7 @@ class TreeModelObjective:
             for name, g in own.views.items():
                 grads[name] += g
             for name, word_rows in own.rows.items():
-                add_word_rows(grads.rows[name].values, np.searchsorted(rows, word_rows.rows), word_rows.values)
+                add_word_rows(grads.rows[name].values, rows, word_rows.rows, word_rows.values)
         self.model.add_layout_gradients(grads, [self._chunk_grads[k].layout for k in range(len(chunks))],
                                         self._run_parts)
         return loss + self.add_l2(params, grads, rows) if include_l2 else loss
