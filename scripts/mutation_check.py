@@ -139,6 +139,11 @@ MUTATIONS = [
              "rows = np.arange(params.L.shape[0], dtype=np.int64)",
              "every word row is regularised and updated every step (the old dense L2)",
              ("tests/test_word_rows.py", "tests/test_word_rows_training.py")),
+    Mutation("squares-tail-dropped", "rntn_engine/kernels/adagrad_step.py",
+             "for i in range(rows * lanes, n):",
+             "for i in range(rows * lanes, n - 1):",
+             "the L2 penalty's sum of squares leaves out the last element of a group",
+             ("tests/test_adagrad_and_determinism.py",)),
     Mutation("adagrad-l2-sign", "rntn_engine/kernels/adagrad_step.py",
              "gi = g[i] + lam * theta[i]",
              "gi = g[i] - lam * theta[i]",
@@ -271,7 +276,7 @@ MUTATIONS = [
              "key=lambda p: p[0])",
              "key=lambda p: -p[0])",
              "the ranks' losses are summed in another order than one process's",
-             ("tests/test_mpi.py",)),
+             ("tests/test_distributed_loss_order.py", "tests/test_mpi.py")),
 ]
 
 def copy_repository(target: Path) -> None:

@@ -103,3 +103,18 @@ def test_fused_step_flushes_subnormal_parameters_to_zero():
     opt = AdaGrad(params, lr=1e-45)  # a step far too small to move anything
     opt.step_with_l2(params, filled_gradient(shape, 0.0), L2Strengths(0, 0, 0, 0))  # every row touched
     assert params.W[0, 0] == np.float32(0.5) and np.count_nonzero(params.flat) == 1
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_sum_of_squares_against_an_exactly_rounded_sum(dtype):
+    # reference: Python's math.fsum (exactly rounded sum of the float64 squares); lengths around the
+    # kernel's 16 running sums and a V of d = 25
+    import math
+
+    from rntn_engine.kernels.adagrad_step import sum_of_squares
+
+    rng = np.random.default_rng(8)
+    for n in [0, 1, 5, 15, 16, 17, 33, 62_500]:
+        x = rng.standard_normal(n).astype(dtype)
+        exact = math.fsum(float(v) * float(v) for v in x.astype(np.float64))
+        assert sum_of_squares(x) == pytest.approx(exact, rel=1e-13, abs=0.0)

@@ -21,25 +21,34 @@ from rntn_engine.jit_setup import numeric_kernel
 from rntn_engine.kernels.cache_hints import ROWS_AHEAD, prefetch_row
 
 
+SQUARE_LANES = 16  # running sums of sum_of_squares: lane t sums x[t], x[t + 16], x[t + 32], ...
+
+
 @numeric_kernel
 def sum_of_squares(x):
-    """sum_i x_i^2 in float64 over x (n,), with eight running sums (independent chains the CPU
-    overlaps) added in a fixed order: deterministic, and about eight times faster than one chain."""
+    """sum_i x_i^2 in float64 over x (n,), in SQUARE_LANES running sums added in lane order, then the
+    last n mod SQUARE_LANES terms: a fixed order for a given n (deterministic, any thread count). The
+    loop over a row of lanes has no dependency between its iterations, so LLVM vectorises it (the
+    lanes' sums held in SIMD registers): 26 -> 11 us for 62,500 float32 numbers (V at d = 25), against
+    eight scalar chains before (ad-hoc timing, medians of 300 calls)."""
     n = x.shape[0]
-    s0 = s1 = s2 = s3 = s4 = s5 = s6 = s7 = 0.0
-    top = n - n % 8
-    for i in range(0, top, 8):
-        s0 += np.float64(x[i]) * np.float64(x[i])
-        s1 += np.float64(x[i + 1]) * np.float64(x[i + 1])
-        s2 += np.float64(x[i + 2]) * np.float64(x[i + 2])
-        s3 += np.float64(x[i + 3]) * np.float64(x[i + 3])
-        s4 += np.float64(x[i + 4]) * np.float64(x[i + 4])
-        s5 += np.float64(x[i + 5]) * np.float64(x[i + 5])
-        s6 += np.float64(x[i + 6]) * np.float64(x[i + 6])
-        s7 += np.float64(x[i + 7]) * np.float64(x[i + 7])
-    for i in range(top, n):
-        s0 += np.float64(x[i]) * np.float64(x[i])
-    return ((s0 + s1) + (s2 + s3)) + ((s4 + s5) + (s6 + s7))
+    acc = np.zeros(SQUARE_LANES)
+    # a trip count the compiler cannot fold to a constant: a constant 16 gets the loop unrolled into
+    # scalar code (numba leaves LLVM's SLP vectorizer off), a run-time one gets it vectorised
+    lanes = max(1, min(SQUARE_LANES, n))
+    rows = n // lanes
+    for r in range(rows):
+        base = r * lanes
+        for t in range(lanes):
+            v = np.float64(x[base + t])
+            acc[t] += v * v
+    total = 0.0
+    for t in range(lanes):
+        total += acc[t]
+    for i in range(rows * lanes, n):
+        v = np.float64(x[i])
+        total += v * v
+    return total
 
 
 @numeric_kernel
