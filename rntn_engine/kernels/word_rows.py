@@ -14,8 +14,9 @@ the minibatch receive anything, so the gradient is kept as those rows only:
 
 and ``scatter_word_rows`` adds each leaf's error to ``values[slot]``, in leaf order. Each
 chunk of a minibatch first sums its own leaves into rows of its own (its distinct words and
-the slots, ``chunk_word_rows``); ``add_word_rows`` then adds the chunks' rows into the minibatch's rows in chunk order, so
-the result never depends on which thread, or which MPI rank, computed a chunk.
+the slots, ``chunk_word_rows``); ``add_word_rows`` then adds the chunks' rows into the
+minibatch's rows in chunk order, so the result never depends on which thread, or which MPI
+rank, computed a chunk.
 """
 
 from __future__ import annotations
