@@ -1,19 +1,21 @@
 """Every numba setting of the package, in one place: the flags of our compiled functions, and
 what happens when numba's on-disk cache is damaged.
 
-Two kinds of compiled function:
+Three kinds of compiled function:
 
 - ``numeric_kernel``: the arithmetic kernels (kernels/). ``parallel=False``: parallelism comes
-  from running independent chunks of a minibatch on our own threads, each with its own buffers,
-  summed in a fixed order, so results never depend on the thread count; ``nogil=True`` lets those
-  threads run at once; ``fastmath=False`` keeps IEEE arithmetic (bit-reproducible results, NaN
-  and inf propagate); ``error_model="numpy"``: a division by zero gives inf or NaN, as in NumPy,
-  instead of a Python exception check in every loop.
+  from running independent chunks of a minibatch (and fixed element ranges of a group) on
+  threads, each with its own buffers, summed in a fixed order, so results never depend on the
+  thread count; ``nogil=True`` lets those threads run at once; ``fastmath=False`` keeps IEEE
+  arithmetic (bit-reproducible results, NaN and inf propagate); ``error_model="numpy"``: a division
+  by zero gives inf or NaN, as in NumPy, instead of a Python exception check in every loop.
+- ``threaded_kernel``: the same flags with ``parallel=True``, for the few kernels whose ``prange``
+  loop hands those fixed parts to numba's threads (see "numba's threads" below).
 - ``byte_scanner``: the treebank scanners, batch builders and slice masks (data/, run/), integer
   code over bytes, offsets and flags, keeping numba's Python error model (an index or a division error raises);
   ``inline=True`` for the tiny helpers called in their inner loops.
 
-Both keep compiled code on disk (``cache=True``): a new process loads instead of compiling.
+All keep compiled code on disk (``cache=True``): a new process loads instead of compiling.
 
 A damaged cache file -- cut short by a full disk or a copy, or overwritten -- makes numba's
 loader raise at the first call of the function (numba issue 10434, open as of numba 0.68),
@@ -30,21 +32,72 @@ about 20 ms for the 170 files of a full cache. No numba internals are touched.
 
 from __future__ import annotations
 
+import importlib
 import io
 import os
 import pickletools
 import warnings
+from functools import cache
 from pathlib import Path
 
-from numba import config, njit
+from numba import config, njit, set_num_threads
 
 NUMERIC_FLAGS = {"cache": True, "nogil": True, "parallel": False, "fastmath": False, "error_model": "numpy"}
+THREADED_FLAGS = dict(NUMERIC_FLAGS, parallel=True)
 SCANNER_FLAGS = {"cache": True, "nogil": True}
 
 
 def numeric_kernel(function):
     """Compile an arithmetic kernel with :data:`NUMERIC_FLAGS`."""
     return njit(**NUMERIC_FLAGS)(function)
+
+
+def threaded_kernel(function):
+    """Compile a kernel whose ``prange`` loop runs fixed, independent parts (a minibatch's chunks, a
+    group's element ranges) on numba's threads: :data:`NUMERIC_FLAGS` with ``parallel=True``. Each
+    part runs the serial kernels into elements of its own, so the bits never depend on the thread
+    count. Called only through :func:`compiled_threads` (which picks a threading layer) and
+    :func:`use_threads`."""
+    return njit(**THREADED_FLAGS)(function)
+
+
+# --- numba's threads ------------------------------------------------------------------------------
+# A step hands work to its threads several times (the chunks, then element ranges of the reduction and
+# of AdaGrad), each a few hundred microseconds long. Waking a sleeping thread costs about 0.1 ms on the
+# virtual machines we measured (a Python thread pool, and numba's own "workqueue" layer: 105-170 us per
+# hand-over), which ate most of a second core's gain. The OpenMP and TBB layers keep their threads
+# spinning briefly after each parallel loop: 2-7 us per hand-over (ad-hoc timing of an empty 2-part
+# prange after 0-1,000 us of serial work, medians of 1,000 calls, 2026-12-02, this project's 2-core
+# machine, GNU OpenMP). So the threaded kernels are used only with one of those layers; without them
+# the model layer runs the same serial kernels on its Python worker threads (model/part_threads.py).
+
+_SPINNING_LAYERS = (("omp", "numba.np.ufunc.omppool"), ("tbb", "numba.np.ufunc.tbbpool"))
+
+
+@cache
+def compiled_threads() -> str | None:
+    """The spinning threading layer the threaded kernels run on ("omp" or "tbb"), or None when neither
+    loads, or NUMBA_THREADING_LAYER names another one (the user's choice is kept). Chosen once per
+    process, before numba starts its threads."""
+    requested = os.environ.get("NUMBA_THREADING_LAYER", "").strip().lower()
+    for layer, module in _SPINNING_LAYERS:
+        if requested not in ("", "default", layer):
+            continue
+        try:
+            importlib.import_module(module)
+        except Exception:  # the layer's library is missing (libgomp, libtbb): try the next
+            continue
+        config.THREADING_LAYER = layer
+        return layer
+    return None
+
+
+def use_threads(threads: int) -> int:
+    """Let the calling thread's next threaded kernel use ``threads`` threads (at most numba's pool:
+    NUMBA_NUM_THREADS, the machine's cores unless set); returns the number set."""
+    threads = max(1, min(int(threads), config.NUMBA_NUM_THREADS))
+    set_num_threads(threads)
+    return threads
 
 
 def byte_scanner(function=None, *, inline: bool = False):
@@ -58,7 +111,7 @@ def byte_scanner(function=None, *, inline: bool = False):
 # --- a damaged on-disk cache is a cache miss ------------------------------------------------------
 
 _PICKLES_IN = {".nbi": 2, ".nbc": 1}  # complete pickles in a sound index / data file
-_DECORATORS = ("@numeric_kernel", "@byte_scanner")
+_DECORATORS = ("@numeric_kernel", "@threaded_kernel", "@byte_scanner")
 
 
 def complete_pickles(data: bytes) -> int:

@@ -16,8 +16,9 @@ a row no minibatch touches keeps its value and its G bit for bit.
 from __future__ import annotations
 
 import numpy as np
+from numba import prange
 
-from rntn_engine.jit_setup import numeric_kernel
+from rntn_engine.jit_setup import numeric_kernel, threaded_kernel
 from rntn_engine.kernels.cache_hints import ROWS_AHEAD, prefetch_row
 
 
@@ -136,3 +137,14 @@ def adagrad_l2_rows_step(theta, G, rows, values, anchor, lam, lr, eps, update, f
                 theta[r, c] = 0.0 if abs(t) < flush_below else t
             values[j, c] = 0
     return squares
+
+
+@threaded_kernel
+def adagrad_l2_step_parts(theta, G, g, lam, lr, eps, update, flush_below, cuts, squares):
+    """adagrad_l2_step over each fixed element range cuts[p]..cuts[p+1]-1 of one dense group, the ranges
+    on numba's threads; squares (parts,) float64 out: each range's sum of squares (the caller adds them in
+    range order). Each element's update depends on that element only: any thread count, the same bits."""
+    for p in prange(cuts.shape[0] - 1):
+        a = cuts[p]
+        z = cuts[p + 1]
+        squares[p] = adagrad_l2_step(theta[a:z], G[a:z], g[a:z], lam, lr, eps, update, flush_below)

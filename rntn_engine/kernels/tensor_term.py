@@ -50,7 +50,9 @@ single-threaded inside one chunk). The NumPy twins are ``reference_tensor_term``
 from __future__ import annotations
 
 import numpy as np
-from rntn_engine.jit_setup import numeric_kernel
+from numba import prange
+
+from rntn_engine.jit_setup import numeric_kernel, threaded_kernel
 
 NODE_BLOCK = 4  # nodes per register block of the own kernel
 TILE = 256  # columns of Q per tile of the own kernel: NODE_BLOCK x TILE sums stay in L1 (8 KiB in float64)
@@ -233,6 +235,21 @@ def add_pair_layout_gradient(dV, dT):
                 dV[k, i, j] += dT[k, p]
                 dV[k, j, i] += dT[k, p]
                 p += 1
+
+
+@threaded_kernel
+def add_pair_layout_gradients_parts(dV, dTs, cuts):
+    """dV += the sum of the chunks' pair-layout gradients dTs (a tuple, one (d, D(D+1)/2) per chunk), for
+    the k of each fixed range cuts[p]..cuts[p+1]-1 on numba's threads: the chunks summed in chunk order
+    into the first one's rows (which are scratch), then one fold (add_pair_layout_gradient). Every
+    element sees the same additions in the same order whatever the thread count."""
+    for p in prange(cuts.shape[0] - 1):
+        a = cuts[p]
+        z = cuts[p + 1]
+        total = dTs[0][a:z]
+        for c in range(1, len(dTs)):
+            total += dTs[c][a:z]
+        add_pair_layout_gradient(dV[a:z], total)
 
 
 @numeric_kernel

@@ -41,8 +41,9 @@ the tensor terms where the unsymmetrised form needs 24 d^3.
 from __future__ import annotations
 
 import numpy as np
+from numba import prange
 
-from rntn_engine.jit_setup import numeric_kernel
+from rntn_engine.jit_setup import numeric_kernel, threaded_kernel
 
 from rntn_engine.kernels.tensor_term import (
     NODE_BLOCK,
@@ -64,6 +65,18 @@ def symmetric_tensor_layout(Vsym, V):
         for i in range(D):
             for j in range(D):
                 Vsym[i, k * D + j] = V[k, i, j] + V[k, j, i]
+
+
+@threaded_kernel
+def symmetric_tensor_layout_parts(Vsym, V, cuts):
+    """symmetric_tensor_layout for the k of each fixed range cuts[p]..cuts[p+1]-1, the ranges on numba's
+    threads (every element is written by one range, with the same arithmetic: any thread count).
+    cuts (parts + 1,) int64 ascending, from 0 to d."""
+    D = V.shape[1]
+    for p in prange(cuts.shape[0] - 1):
+        a = cuts[p]
+        z = cuts[p + 1]
+        symmetric_tensor_layout(Vsym[:, a * D : z * D], V[a:z])
 
 
 @numeric_kernel

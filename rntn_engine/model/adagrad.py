@@ -22,7 +22,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from rntn_engine.kernels.adagrad_step import adagrad_l2_rows_step, adagrad_l2_step
+from rntn_engine.jit_setup import use_threads
+from rntn_engine.kernels.adagrad_step import adagrad_l2_rows_step, adagrad_l2_step, adagrad_l2_step_parts
 from rntn_engine.model.objective import L2Strengths
 from rntn_engine.model.parameters import L2_GROUP, Gradient, Parameters
 from rntn_engine.model.part_threads import PartThreads
@@ -105,6 +106,15 @@ class AdaGrad:
         if n < PARALLEL_MIN:
             return adagrad_l2_step(theta, G, g, lam, lr, eps, update, flush_below)
         cuts = [n * p // DENSE_PARTS for p in range(DENSE_PARTS + 1)]
+        if self._threads.kernel_threads:  # the parts on numba's threads (model/part_threads.py)
+            squares = np.zeros(DENSE_PARTS)
+            use_threads(self._threads.kernel_threads)
+            adagrad_l2_step_parts(theta, G, g, lam, lr, eps, update, flush_below, np.array(cuts, dtype=np.int64),
+                                  squares)
+            total = 0.0
+            for value in squares:  # in part order
+                total += float(value)
+            return total
 
         def part(p: int) -> float:
             a, z = cuts[p], cuts[p + 1]

@@ -42,6 +42,18 @@ def run_in_order(work: Callable[[object], None], parts: list) -> None:
         work(part)
 
 
+@dataclass
+class ChunkJob:
+    """One chunk of a minibatch handed to a model's compiled chunk gradient (ModelSpec.gradient_chunks)."""
+
+    batch: FlatBatch
+    acts: Activations  # the chunk's workspaces
+    grads: dict[str, np.ndarray]  # the chunk's own dense gradients (W, b, Ws, bs, ...), zero on entry, added to
+    layout_grad: np.ndarray  # the chunk's layout gradient (layout_gradient_shape), overwritten
+    word_rows: dict  # word array symbol -> model/parameters.py WordRows, set to the chunk's rows and gradient
+    loss: float = 0.0  # out: the chunk's share of the data term
+
+
 MIN_ROWS = 16  # an activation buffer never starts smaller: tiny batches do not reallocate every step
 
 
@@ -118,12 +130,15 @@ class ModelSpec(ABC):
     def new_activations(self) -> Activations:
         return self.activations(np.dtype(self.shape.dtype))
 
-    def prepare(self, params: Parameters, run_parts: PartRunner = run_in_order, forward_only: bool = False) -> None:
+    def prepare(self, params: Parameters, run_parts: PartRunner = run_in_order, forward_only: bool = False,
+                kernel_threads: int = 0) -> None:
         """Per-step work on the parameters before any chunk runs (shared by the chunks, read-only);
         ``forward_only``: for forward passes that keep nothing for a backward pass.
 
         ``run_parts(work, parts)`` calls ``work(part)`` for every part, on the objective's worker
         threads when it has them: for work cut into fixed parts that touch disjoint elements.
+        ``kernel_threads`` > 0: run such parts in a threaded kernel on that many of numba's threads
+        instead (PartThreads.kernel_threads).
         """
 
     @abstractmethod
@@ -143,6 +158,15 @@ class ModelSpec(ABC):
     def word_errors(self, acts: Activations) -> dict[str, np.ndarray]:
         """Word array symbol -> (N, width) error of every node: a leaf's row is its word row's gradient."""
 
+    def gradient_chunks(self, params: Parameters, jobs: list[ChunkJob], class_weights: np.ndarray, scale: float,
+                        threads) -> bool:
+        """The whole gradient of each chunk in ``jobs`` (forward, the shared classifier with
+        ``class_weights`` and ``scale``, backward, the word rows) in compiled calls, on ``threads``
+        (model/part_threads.py PartThreads: its ``kernel_threads``, or its Python threads); the same
+        bits as the objective's chunk-by-chunk path. Returns False, doing nothing, when the model has no
+        such call: the objective then runs forward, the classifier and backward itself."""
+        return False
+
     # --- a gradient reduced from another layout -------------------------------------------------------
 
     def layout_gradient_shape(self) -> tuple[int, ...]:
@@ -150,10 +174,10 @@ class ModelSpec(ABC):
         return (0, 0)
 
     def add_layout_gradients(self, grads: dict[str, np.ndarray], layout_grads: list[np.ndarray],
-                             run_parts: PartRunner = run_in_order) -> None:
+                             run_parts: PartRunner = run_in_order, kernel_threads: int = 0) -> None:
         """Add every chunk's extra gradient to the minibatch's arrays in ``grads``, in chunk order for
-        every element (``run_parts`` as in prepare); nothing for a model without one. The chunks'
-        buffers are scratch, rewritten every step: this may sum them into the first one."""
+        every element (``run_parts`` and ``kernel_threads`` as in prepare); nothing for a model without
+        one. The chunks' buffers are scratch, rewritten every step: this may sum them into the first one."""
 
 
 # --- draws shared by the models (model/parameters.py lists the distributions) -------------------------

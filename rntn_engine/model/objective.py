@@ -55,7 +55,7 @@ from rntn_engine.kernels.chunk_balance import LEVEL_WORK, NODE_WORK, balanced_cu
 from rntn_engine.kernels.node_classifier import backward_classify, forward_classify
 from rntn_engine.kernels.word_rows import add_word_rows, chunk_word_rows, scatter_word_rows, touched_rows
 from rntn_engine.model.model_registry import model_spec
-from rntn_engine.model.model_spec import Activations
+from rntn_engine.model.model_spec import Activations, ChunkJob
 from rntn_engine.model.part_threads import PartThreads
 from rntn_engine.model.parameters import L2_GROUP, L2_GROUPS, WORD_ROW_NAMES, Gradient, Parameters, WordRows
 
@@ -232,15 +232,17 @@ class TreeModelObjective:
         """
         n_trees = sum(c.n_trees for c in chunks)
         scale = 1.0 / n_trees
-        self.model.prepare(params, self._run_parts)
+        kernel_threads = self._threads.kernel_threads
+        self.model.prepare(params, self._run_parts, kernel_threads=kernel_threads)
         while len(self._chunk_grads) < len(chunks):
             self._chunk_grads.append(ChunkGradient(params, self._chunk_names, self.model.layout_gradient_shape()))
         ranks, rank = (group.size, group.rank) if group is not None else (1, 0)
         mine = [k for k in range(len(chunks)) if k % ranks == rank]
+        for k in mine:
+            self._chunk_grads[k].flat[:] = 0  # each chunk's own sums start from zero
 
         def run(k: int) -> None:
             own, batch = self._chunk_grads[k], chunks[k]
-            own.flat[:] = 0  # this chunk's own sums start from zero
             acts = self._slot(k)
             own.loss = self._gradient_chunk(params, own.views, own.layout, batch, acts, scale)
             rows, slot = chunk_word_rows(batch.word, batch.leaves)  # the chunk's words; each leaf's row among them
@@ -248,7 +250,14 @@ class TreeModelObjective:
                 own.rows[name].reset(rows)
                 scatter_word_rows(own.rows[name].values, errors, slot, batch.leaves)
 
-        self._run_parts(run, mine)
+        # the model's compiled chunk gradient when it has one (the vector models), else chunk by chunk here
+        jobs = [ChunkJob(chunks[k], self._slot(k), self._chunk_grads[k].views, self._chunk_grads[k].layout,
+                         self._chunk_grads[k].rows) for k in mine]
+        if self.model.gradient_chunks(params, jobs, self.class_weights, scale, self._threads):
+            for k, job in zip(mine, jobs):
+                self._chunk_grads[k].loss = job.loss
+        else:
+            self._run_parts(run, mine)
         if ranks > 1:  # every rank gets every chunk's share: (chunk, size, packed gradient) for each of mine
             sizes = [self._chunk_grads[k].packed_size() for k in mine]
             packed = np.empty(sum(16 + size for size in sizes), dtype=np.uint8)
@@ -279,7 +288,7 @@ class TreeModelObjective:
             for name, word_rows in own.rows.items():
                 add_word_rows(grads.rows[name].values, rows, word_rows.rows, word_rows.values)
         self.model.add_layout_gradients(grads, [self._chunk_grads[k].layout for k in range(len(chunks))],
-                                        self._run_parts)
+                                        self._run_parts, kernel_threads)
         return loss + self.add_l2(params, grads, rows) if include_l2 else loss
 
     def add_l2(self, params: Parameters, grads: Gradient | None, rows: np.ndarray) -> float:

@@ -209,8 +209,23 @@ class WordRows:
     def __init__(self, width: int, dtype: np.dtype) -> None:
         self.width = width
         self._buffer = np.zeros((16, width), dtype=dtype)
+        self._ids = np.zeros(16, dtype=np.int64)  # rows written by a kernel (reserve / hold)
         self.rows = np.zeros(0, dtype=np.int64)
         self.values = self._buffer[:0]
+
+    def reserve(self, n: int) -> tuple[np.ndarray, np.ndarray]:
+        """Room for up to ``n`` rows, for a kernel to fill: (values buffer (>= n, width), ids buffer (>= n,)
+        int64); then :meth:`hold` the number it wrote. Contents are not cleared."""
+        if n > self._buffer.shape[0]:
+            self._buffer = np.zeros((max(n, 2 * self._buffer.shape[0]), self.width), dtype=self._buffer.dtype)
+        if n > self._ids.shape[0]:
+            self._ids = np.zeros(max(n, 2 * self._ids.shape[0]), dtype=np.int64)
+        return self._buffer, self._ids
+
+    def hold(self, n: int) -> None:
+        """Hold the first ``n`` rows a kernel wrote into :meth:`reserve`'s buffers (ids sorted, distinct)."""
+        self.rows = self._ids[:n]
+        self.values = self._buffer[:n]
 
     def reset(self, rows: np.ndarray) -> None:
         """Hold the rows ``rows`` (sorted, distinct), with zero gradient."""

@@ -15,10 +15,13 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from rntn_engine.jit_setup import use_threads
+from rntn_engine.kernels.chunk_gradient import vector_chunk_gradient, vector_chunks_gradient
 from rntn_engine.kernels.tensor_term import OWN_KERNEL_ROWS
 from rntn_engine.kernels.tree_compose import backward_compose, forward_compose
 from rntn_engine.model.model_spec import (
     Activations,
+    ChunkJob,
     ModelSpec,
     draw_classifier,
     draw_composition,
@@ -127,6 +130,45 @@ class RecursiveNetwork(ModelSpec):
         U = acts.Q.reshape(-1)[: M * (d * D + d)].reshape(M, d * D + d) if self.with_tensor else acts.Q
         backward_compose(grads["W"], grads["b"], layout_grad, acts.E, acts.Delta, acts.EX, acts.P, acts.X, Q, U,
                          params.W, batch.left, batch.right, batch.order, batch.level_start, self.with_tensor)
+
+    def gradient_chunks(self, params: Parameters, jobs: list[ChunkJob], class_weights: np.ndarray, scale: float,
+                        threads) -> bool:
+        """Each chunk's gradient in one compiled call (kernels/chunk_gradient.py); the chunks on numba's
+        threads when ``threads.kernel_threads`` is set, else on ``threads.run`` (ModelSpec.gradient_chunks)."""
+        d, C = self.shape.dim, self.shape.num_classes
+        D = 2 * d
+        per_chunk = []  # the chunk arguments of vector_chunk_gradient, in its order
+        for job in jobs:
+            batch, acts = job.batch, job.acts
+            N, M = batch.n_nodes, batch.n_internal
+            q_rows, q_cols = (M, d * D + d) if self.with_tensor else (0, 0)
+            acts.resize({"P": (N, d), "X": (M, D), "Z": (M, d), "Q": (q_rows, q_cols), "Y": (N, C), "S": (N, C),
+                         "E": (N, d), "dS": (N, C), "Delta": (M, d), "EX": (M, D)})
+            Q = self._q_view(acts, M)  # X Vsym; U (the pair products) shares its memory, as in backward
+            U = acts.Q.reshape(-1)[: M * q_cols].reshape(M, q_cols) if self.with_tensor else acts.Q
+            values, ids = job.word_rows["L"].reserve(batch.leaves.shape[0])
+            per_chunk.append((job.grads["W"], job.grads["b"], job.layout_grad, job.grads["Ws"], job.grads["bs"],
+                              acts.P, acts.X, acts.Z, Q, U, acts.Y, acts.S, acts.E, acts.dS, acts.Delta, acts.EX,
+                              batch.word, batch.left, batch.right, batch.order, batch.level_start, batch.label,
+                              batch.leaves, values, ids))
+        shared = (params.L, params.W, params.b, self.Vsym, params.Ws, params.bs)
+        fixed = (class_weights, scale, self.with_tensor, self.own_kernel_rows, self._no_pairs)
+        if threads.kernel_threads and len(jobs) > 1:
+            fields = tuple(zip(*per_chunk))  # one tuple per argument, one entry per chunk
+            losses = np.zeros(len(jobs))
+            counts = np.zeros(len(jobs), dtype=np.int64)
+            use_threads(threads.kernel_threads)
+            vector_chunks_gradient(*fields[:16], *shared, *fields[16:23], *fixed, *fields[23:], losses, counts)
+            results = list(zip(losses, counts))
+        else:
+            def run(a: tuple) -> tuple[float, int]:
+                return vector_chunk_gradient(*a[:16], *shared, *a[16:23], *fixed, *a[23:])
+
+            results = threads.run(run, per_chunk)
+        for job, (loss, n) in zip(jobs, results):
+            job.loss = float(loss)
+            job.word_rows["L"].hold(int(n))
+        return True
 
     def _block_rows(self) -> int:
         return forward_block_rows(self.shape.dim, np.dtype(self.shape.dtype).itemsize)

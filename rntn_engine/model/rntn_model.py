@@ -18,8 +18,9 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from rntn_engine.kernels.tensor_term import add_pair_layout_gradient, pair_layout
-from rntn_engine.kernels.tree_compose import symmetric_tensor_layout
+from rntn_engine.kernels.tensor_term import add_pair_layout_gradient, add_pair_layout_gradients_parts, pair_layout
+from rntn_engine.kernels.tree_compose import symmetric_tensor_layout, symmetric_tensor_layout_parts
+from rntn_engine.jit_setup import use_threads
 from rntn_engine.model.model_spec import PartRunner, draw_classifier, draw_composition, draw_word_vectors, run_in_order
 from rntn_engine.model.rnn_model import RecursiveNetwork
 
@@ -56,8 +57,17 @@ class TensorNetwork(RecursiveNetwork):
         cuts = [d * p // TENSOR_PARTS for p in range(TENSOR_PARTS + 1)]
         return [(a, z) for a, z in zip(cuts[:-1], cuts[1:]) if z > a]
 
-    def prepare(self, params: Parameters, run_parts: PartRunner = run_in_order, forward_only: bool = False) -> None:
+    def _k_cuts(self) -> np.ndarray:
+        ranges = self._k_ranges()
+        return np.array([a for a, _ in ranges] + [ranges[-1][1]], dtype=np.int64)
+
+    def prepare(self, params: Parameters, run_parts: PartRunner = run_in_order, forward_only: bool = False,
+                kernel_threads: int = 0) -> None:
         D = 2 * self.shape.dim
+        if kernel_threads and not forward_only and len(self._k_ranges()) > 1:
+            use_threads(kernel_threads)
+            symmetric_tensor_layout_parts(self.Vsym, params.V, self._k_cuts())
+            return
 
         def work(k: tuple[int, int]) -> None:  # the layout's part of V[k] for k in the range
             if forward_only:  # the pair layout of tensor_term.py
@@ -70,7 +80,12 @@ class TensorNetwork(RecursiveNetwork):
     def layout_gradient_shape(self) -> tuple[int, ...]:
         return self.pairs.shape  # (d, D(D+1)/2): dT of kernels/tensor_term.py
 
-    def add_layout_gradients(self, grads, layout_grads: list[np.ndarray], run_parts: PartRunner = run_in_order) -> None:
+    def add_layout_gradients(self, grads, layout_grads: list[np.ndarray], run_parts: PartRunner = run_in_order,
+                             kernel_threads: int = 0) -> None:
+        if kernel_threads and len(self._k_ranges()) > 1:
+            use_threads(kernel_threads)
+            add_pair_layout_gradients_parts(grads["V"], tuple(layout_grads), self._k_cuts())
+            return
 
         def work(k: tuple[int, int]) -> None:  # dV[k] for k in the range
             # the chunks' pair layouts summed in chunk order into the first one's, then one fold into dV:
