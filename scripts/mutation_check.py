@@ -277,6 +277,21 @@ MUTATIONS = [
              "key=lambda p: -p[0])",
              "the ranks' losses are summed in another order than one process's",
              ("tests/test_distributed_loss_order.py", "tests/test_mpi.py")),
+    Mutation("chunk-word-rows-not-cleared", "rntn_engine/kernels/chunk_gradient.py",
+             "    values[:, :] = 0.0",
+             "    pass",
+             "the compiled chunk gradient adds a chunk's word rows onto the previous step's",
+             ("tests/test_chunk_gradient.py",)),
+    Mutation("threaded-adagrad-skips-a-range", "rntn_engine/kernels/adagrad_step.py",
+             "        squares[p] = adagrad_l2_step(",
+             "        squares[p] = 0.0 if p == cuts.shape[0] - 2 else adagrad_l2_step(",
+             "the threaded AdaGrad leaves its last element range un-updated",
+             ("tests/test_chunk_gradient.py", "tests/test_parallel_parts.py")),
+    Mutation("threaded-fold-drops-a-chunk", "rntn_engine/kernels/tensor_term.py",
+             "        for c in range(1, len(dTs)):",
+             "        for c in range(1, len(dTs) - 1):",
+             "the threaded fold of the tensor gradient leaves out the last chunk",
+             ("tests/test_chunk_gradient.py", "tests/test_parallel_parts.py")),
 ]
 
 def copy_repository(target: Path) -> None:
