@@ -176,3 +176,13 @@ def test_chunk_word_rows_and_the_merged_add_against_numpy():
     np.add.at(expected, np.searchsorted(all_rows, rows), part)
     add_word_rows(values, all_rows, rows, part)
     assert np.array_equal(values, expected)
+
+
+def test_merged_rows_is_the_sorted_union():
+    from rntn_engine.kernels.word_rows import merged_rows
+
+    rng = np.random.default_rng(5)
+    for n, m in [(0, 0), (0, 4), (5, 0), (30, 40), (200, 7)]:
+        a = np.unique(rng.integers(0, 60, size=n)).astype(np.int64)
+        b = np.unique(rng.integers(0, 60, size=m)).astype(np.int64)
+        assert np.array_equal(merged_rows(a, b), np.union1d(a, b))  # NumPy's set union as the reference

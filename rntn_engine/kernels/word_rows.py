@@ -79,6 +79,38 @@ def add_word_rows(values, rows, part_rows, part_values):
             values[r, c] += part_values[j, c]
 
 
+@numeric_kernel
+def merged_rows(a, b):
+    """The distinct word ids of two chunks together, ascending: a (n,) and b (m,) int64, each ascending and
+    distinct, merged in one pass (the minibatch's rows from its chunks' rows; 26 -> NN us a d = 25
+    step against sorting the chunks' leaf words, per-call timers)."""
+    out = np.empty(a.shape[0] + b.shape[0], dtype=np.int64)
+    i = 0
+    j = 0
+    n = 0
+    while i < a.shape[0] and j < b.shape[0]:
+        if a[i] < b[j]:
+            out[n] = a[i]
+            i += 1
+        elif b[j] < a[i]:
+            out[n] = b[j]
+            j += 1
+        else:
+            out[n] = a[i]
+            i += 1
+            j += 1
+        n += 1
+    while i < a.shape[0]:
+        out[n] = a[i]
+        i += 1
+        n += 1
+    while j < b.shape[0]:
+        out[n] = b[j]
+        j += 1
+        n += 1
+    return out[:n]
+
+
 def touched_rows(leaf_words: list[np.ndarray]) -> np.ndarray:
     """The distinct word ids of a minibatch, ascending (int64), from each chunk's leaf words."""
     if not leaf_words:

@@ -53,7 +53,7 @@ from rntn_engine.data.batches import EncodedTreebank, FlatBatch, make_batch
 from rntn_engine.kernels.adagrad_step import word_rows_l2
 from rntn_engine.kernels.chunk_balance import LEVEL_WORK, NODE_WORK, balanced_cuts, tree_shapes
 from rntn_engine.kernels.node_classifier import backward_classify, forward_classify
-from rntn_engine.kernels.word_rows import add_word_rows, chunk_word_rows, scatter_word_rows, touched_rows
+from rntn_engine.kernels.word_rows import add_word_rows, chunk_word_rows, merged_rows, scatter_word_rows, touched_rows
 from rntn_engine.model.model_registry import model_spec
 from rntn_engine.model.model_spec import Activations, ChunkJob
 from rntn_engine.model.part_threads import PartThreads
@@ -276,7 +276,10 @@ class TreeModelObjective:
 
         # reduce in chunk order: bitwise independent of the thread count and of the number of ranks
         grads.zero_()
-        rows = touched_rows([self._chunk_grads[k].rows["L"].rows for k in range(len(chunks))])
+        # every chunk's distinct words, ascending, in an array of their own (the chunks' are reused)
+        rows = np.zeros(0, dtype=np.int64)
+        for k in range(len(chunks)):
+            rows = merged_rows(rows, self._chunk_grads[k].rows["L"].rows)
         for word_rows in grads.rows.values():
             word_rows.reset(rows)
         loss = 0.0
