@@ -121,7 +121,7 @@ def worker(args) -> None:
             for own in chunk_grads:  # the dense part of the reduction (model/objective.py, loss_and_gradient)
                 for name, g in own.views.items():
                     grads[name] += g
-                objective.model.add_layout_gradients(grads, [own.layout])
+                objective.model.set_layout_gradients(grads, [own.layout])
             reduce_times.append((time.perf_counter() - t0) / len(chunk_grads))
             t0 = time.perf_counter()
             optimiser.step_with_l2(params, grads, objective.l2)

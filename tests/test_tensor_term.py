@@ -25,6 +25,7 @@ from rntn_engine.kernels.tensor_term import (
     NODE_BLOCK,
     TILE,
     add_pair_layout_gradient,
+    set_pair_layout_gradient,
     pair_layout,
     tensor_term_forward_blas,
     tensor_term_forward_own,
@@ -108,6 +109,19 @@ def test_tensor_gradient_in_pair_layout_equals_sum_of_outer_products(dtype):
     X64, Delta64 = X.astype(np.float64), Delta.astype(np.float64)
     expected = sum(np.einsum("k,i,j->kij", Delta64[m], X64[m], X64[m]) for m in range(M))  # dV[k] += delta_k x x^T
     assert relative_error(dV - 1.0, expected) < TOLERANCE[dtype]
+
+
+@pytest.mark.parametrize("dtype", ["float64", "float32"])
+def test_setting_dv_from_the_pair_layout_has_the_bits_of_zeroing_then_adding(dtype):
+    d = 3
+    P = 2 * d * (2 * d + 1) // 2
+    dT = np.random.default_rng(4).standard_normal((d, P)).astype(dtype)
+    dT[0, :5] = -0.0  # 0.0 + -0.0 is +0.0: a plain copy would keep the minus sign
+    added = np.zeros((d, 2 * d, 2 * d), dtype=dtype)
+    add_pair_layout_gradient(added, dT)
+    written = np.full((d, 2 * d, 2 * d), np.nan, dtype=dtype)  # whatever was there is overwritten
+    set_pair_layout_gradient(written, dT)
+    assert added.tobytes() == written.tobytes()
 
 
 @pytest.mark.parametrize("dtype", ["float64", "float32"])

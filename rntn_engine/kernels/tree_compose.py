@@ -130,7 +130,7 @@ def backward_compose(dW, db, dT, E, Delta, EX, P, X, Q, U, W, left, right, order
     """Gradients of W, b (and the pair-layout tensor gradient), and errors down to the leaves.
 
     dW (d, D) += ; db (d,) += ; dT (d, D(D+1)/2) out: Delta^T U (RNTN; kernels/tensor_term.py) -- a
-    per-chunk workspace, overwritten; the gradient dV receives it with += (add_pair_layout_gradient).
+    per-chunk workspace, overwritten; dV is then set from the chunks' sums (set_pair_layout_gradient).
     E (N, d) in/out: error reaching each node vector; on entry from the node's own
     classifier, on exit also from its parent (leaves' rows are then final).
     Delta (M, d), EX (M, D) workspaces.  P, X, Q from forward_compose; W (d, D).

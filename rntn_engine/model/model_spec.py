@@ -106,7 +106,7 @@ class ModelSpec(ABC):
     parameters: ClassVar[tuple[str, ...]]  # symbols in PARAMETERS, in the order of the flat buffer
     activations: ClassVar[type[Activations]]
     # dense parameters whose chunk gradient is not a plain sum of a per-chunk array (the RNTN's V,
-    # reduced from its layout gradient by add_layout_gradients)
+    # reduced from its layout gradient by set_layout_gradients)
     reduced_from_layout: ClassVar[tuple[str, ...]] = ()
 
     def __init__(self, shape: ModelShape) -> None:
@@ -173,10 +173,11 @@ class ModelSpec(ABC):
         """Shape of a chunk's extra gradient buffer ((0, 0): none)."""
         return (0, 0)
 
-    def add_layout_gradients(self, grads: dict[str, np.ndarray], layout_grads: list[np.ndarray],
+    def set_layout_gradients(self, grads: dict[str, np.ndarray], layout_grads: list[np.ndarray],
                              run_parts: PartRunner = run_in_order, kernel_threads: int = 0) -> None:
-        """Add every chunk's extra gradient to the minibatch's arrays in ``grads``, in chunk order for
-        every element (``run_parts`` and ``kernel_threads`` as in prepare); nothing for a model without
+        """Set the minibatch's arrays of ``reduced_from_layout`` in ``grads`` to the sum of every chunk's
+        extra gradient, in chunk order for every element, with the bits of zeroing them and adding the
+        chunks one by one (``run_parts`` and ``kernel_threads`` as in prepare); nothing for a model without
         one. The chunks' buffers are scratch, rewritten every step: this may sum them into the first one."""
 
 

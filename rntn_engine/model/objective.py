@@ -109,6 +109,7 @@ class ChunkGradient:
         for name in dense_names:
             self.views[name] = self.flat[offset : offset + sizes[name]].reshape(params[name].shape)
             offset += sizes[name]
+        self.dense = self.flat[:offset]  # the dense gradients, summed into (the layout is overwritten)
         self.layout = self.flat[offset:].reshape(layout_shape)  # (0, 0) when the model has no layout gradient
         self.rows = {name: WordRows(int(np.prod(params[name].shape[1:])), dtype)
                      for name in params.names() if name in WORD_ROW_NAMES}
@@ -238,8 +239,8 @@ class TreeModelObjective:
             self._chunk_grads.append(ChunkGradient(params, self._chunk_names, self.model.layout_gradient_shape()))
         ranks, rank = (group.size, group.rank) if group is not None else (1, 0)
         mine = [k for k in range(len(chunks)) if k % ranks == rank]
-        for k in mine:
-            self._chunk_grads[k].flat[:] = 0  # each chunk's own sums start from zero
+        for k in mine:  # each chunk's own sums start from zero (its layout gradient is written whole)
+            self._chunk_grads[k].dense[:] = 0
 
         def run(k: int) -> None:
             own, batch = self._chunk_grads[k], chunks[k]
@@ -275,7 +276,7 @@ class TreeModelObjective:
                     at += 16 + size
 
         # reduce in chunk order: bitwise independent of the thread count and of the number of ranks
-        grads.zero_()
+        grads.zero_(keep=self.model.reduced_from_layout)  # set_layout_gradients writes those whole
         # every chunk's distinct words, ascending, in an array of their own (the chunks' are reused)
         rows = np.zeros(0, dtype=np.int64)
         for k in range(len(chunks)):
@@ -290,7 +291,7 @@ class TreeModelObjective:
                 grads[name] += g
             for name, word_rows in own.rows.items():
                 add_word_rows(grads.rows[name].values, rows, word_rows.rows, word_rows.values)
-        self.model.add_layout_gradients(grads, [self._chunk_grads[k].layout for k in range(len(chunks))],
+        self.model.set_layout_gradients(grads, [self._chunk_grads[k].layout for k in range(len(chunks))],
                                         self._run_parts, kernel_threads)
         return loss + self.add_l2(params, grads, rows) if include_l2 else loss
 

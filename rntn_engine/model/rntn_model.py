@@ -7,7 +7,7 @@ V ~ U(-1/D, 1/D) (small: the model starts close to the RNN). Every step first bu
 symmetric layout of V (kernels/tree_compose.py, symmetric_tensor_layout), or for a
 forward-only pass its pair layout (kernels/tensor_term.py, pair_layout), which the chunks
 share read-only; each chunk's tensor gradient is accumulated in the pair layout (half the size
-of the symmetric one) and folded into dV in chunk order (add_layout_gradients). Both run in TENSOR_PARTS fixed ranges of k on the
+of the symmetric one) and folded into dV in chunk order (set_layout_gradients). Both run in TENSOR_PARTS fixed ranges of k on the
 objective's worker threads: every element of V, Vsym and dV belongs to one range and sees the
 same operations in the same order whatever the number of threads.
 """
@@ -18,7 +18,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from rntn_engine.kernels.tensor_term import add_pair_layout_gradient, add_pair_layout_gradients_parts, pair_layout
+from rntn_engine.kernels.tensor_term import pair_layout, set_pair_layout_gradient, set_pair_layout_gradients_parts
 from rntn_engine.kernels.tree_compose import symmetric_tensor_layout, symmetric_tensor_layout_parts
 from rntn_engine.jit_setup import use_threads
 from rntn_engine.model.model_spec import PartRunner, draw_classifier, draw_composition, draw_word_vectors, run_in_order
@@ -80,20 +80,20 @@ class TensorNetwork(RecursiveNetwork):
     def layout_gradient_shape(self) -> tuple[int, ...]:
         return self.pairs.shape  # (d, D(D+1)/2): dT of kernels/tensor_term.py
 
-    def add_layout_gradients(self, grads, layout_grads: list[np.ndarray], run_parts: PartRunner = run_in_order,
+    def set_layout_gradients(self, grads, layout_grads: list[np.ndarray], run_parts: PartRunner = run_in_order,
                              kernel_threads: int = 0) -> None:
         if kernel_threads and len(self._k_ranges()) > 1:
             use_threads(kernel_threads)
-            add_pair_layout_gradients_parts(grads["V"], tuple(layout_grads), self._k_cuts())
+            set_pair_layout_gradients_parts(grads["V"], tuple(layout_grads), self._k_cuts())
             return
 
         def work(k: tuple[int, int]) -> None:  # dV[k] for k in the range
-            # the chunks' pair layouts summed in chunk order into the first one's, then one fold into dV:
-            # dV is zero here (the reduction zeroes the gradient), so the bits are those of folding the
-            # chunks one after another (0 + a = a), for half the scattered writes of two chunks
+            # the chunks' pair layouts summed in chunk order into the first one's, then one fold that writes
+            # dV as 0 + the sum: the bits of zeroing dV and folding the chunks one after another, for half
+            # the scattered writes of two chunks and no zeroing pass
             total = layout_grads[0][k[0] : k[1]]
             for layout_grad in layout_grads[1:]:
                 total += layout_grad[k[0] : k[1]]
-            add_pair_layout_gradient(grads["V"][k[0] : k[1]], total)
+            set_pair_layout_gradient(grads["V"][k[0] : k[1]], total)
 
         run_parts(work, self._k_ranges())
