@@ -288,8 +288,8 @@ MUTATIONS = [
              "the threaded AdaGrad leaves its last element range un-updated",
              ("tests/test_chunk_gradient.py", "tests/test_parallel_parts.py")),
     Mutation("set-fold-keeps-minus-zero", "rntn_engine/kernels/tensor_term.py",
-             "            dV[k, i, i] = zero + dT[k, p]",
-             "            dV[k, i, i] = dT[k, p]",
+             "                value = zero + s",
+             "                value = s",
              "writing dV from the pair layout differs from zeroing then adding where dT holds -0.0",
              ("tests/test_tensor_term.py",)),
     Mutation("chunk-sums-not-zeroed", "rntn_engine/model/objective.py",
@@ -297,11 +297,11 @@ MUTATIONS = [
              "            pass",
              "a chunk's dense gradient sums carry over from the previous step",
              ("tests/test_chunk_gradient.py", "tests/test_adagrad_and_determinism.py")),
-    Mutation("threaded-fold-drops-a-chunk", "rntn_engine/kernels/tensor_term.py",
-             "        for c in range(1, len(dTs)):",
-             "        for c in range(1, len(dTs) - 1):",
-             "the threaded fold of the tensor gradient leaves out the last chunk",
-             ("tests/test_chunk_gradient.py", "tests/test_parallel_parts.py")),
+    Mutation("fold-drops-a-chunk", "rntn_engine/kernels/tensor_term.py",
+             "                for c in range(1, chunks):",
+             "                for c in range(1, chunks - 1):",
+             "the fold of the chunks' tensor gradients into dV leaves out the last chunk",
+             ("tests/test_tensor_term.py", "tests/test_gradients_independent.py")),
 ]
 
 def copy_repository(target: Path) -> None:

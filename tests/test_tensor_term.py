@@ -120,7 +120,11 @@ def test_setting_dv_from_the_pair_layout_has_the_bits_of_zeroing_then_adding(dty
     added = np.zeros((d, 2 * d, 2 * d), dtype=dtype)
     add_pair_layout_gradient(added, dT)
     written = np.full((d, 2 * d, 2 * d), np.nan, dtype=dtype)  # whatever was there is overwritten
-    set_pair_layout_gradient(written, dT)
+    set_pair_layout_gradient(written, (dT,), 0, d)
+    assert added.tobytes() == written.tobytes()
+    other = np.random.default_rng(5).standard_normal((d, P)).astype(dtype)  # two chunks: added in chunk order
+    add_pair_layout_gradient(added, other)
+    set_pair_layout_gradient(written, (dT, other), 0, d)
     assert added.tobytes() == written.tobytes()
 
 

@@ -41,7 +41,8 @@ triangle, and T[k, p(i,j)] = V[k,i,j] + V[k,j,i] (i < j), V[k,i,i] (i = j) (``pa
                                                 multiply-adds of the symmetric layout's X^T G
                                                 (``tensor_gradient_pairs``)
     dV[k, i, j] = dV[k, j, i] += dT[k, p(i,j)]  (``add_pair_layout_gradient``; ``set_pair_layout_gradient``
-                                                writes 0 + dT instead, for a dV not yet zeroed)
+                                                writes 0 + the chunks' sum instead, for a dV not
+                                                yet zeroed)
 
 Everything here is deterministic and independent of the number of threads (every product runs
 single-threaded inside one chunk). The NumPy twins are ``reference_tensor_term`` and
@@ -239,19 +240,27 @@ def add_pair_layout_gradient(dV, dT):
 
 
 @numeric_kernel
-def set_pair_layout_gradient(dV, dT):
-    """dV (d, D, D) = 0 + the pair-layout gradient (out, not added to): the bits of zeroing dV and then
-    add_pair_layout_gradient, since that adds exactly one term to every element (0.0 + x, not x, so that
-    a -0.0 in dT gives +0.0 there too), without the pass that zeroes dV."""
-    d, D, _ = dV.shape
+def set_pair_layout_gradient(dV, dTs, k0, k1):
+    """dV[k] (D, D) = 0 + the sum of the chunks' pair-layout gradients dTs (a tuple, one (d, D(D+1)/2)
+    per chunk), for k0 <= k < k1 (out, not added to):
+
+        s = dTs[0][k, p] + dTs[1][k, p] + ...    (in chunk order)
+        dV[k, i, j] = dV[k, j, i] = 0 + s        (p = p(i, j))
+
+    The bits of zeroing dV and adding the chunks' gradients one by one with add_pair_layout_gradient,
+    which adds exactly one term to each element (0.0 + s, not s, so that a -0.0 gives +0.0 there too),
+    in one pass: no zeroing of dV, no intermediate sum written back."""
+    D = dV.shape[1]
     zero = dV.dtype.type(0.0)
-    for k in range(d):
+    chunks = len(dTs)
+    for k in range(k0, k1):
         p = 0
         for i in range(D):
-            dV[k, i, i] = zero + dT[k, p]
-            p += 1
-            for j in range(i + 1, D):
-                value = zero + dT[k, p]
+            for j in range(i, D):
+                s = dTs[0][k, p]
+                for c in range(1, chunks):
+                    s += dTs[c][k, p]
+                value = zero + s
                 dV[k, i, j] = value
                 dV[k, j, i] = value
                 p += 1
@@ -259,17 +268,10 @@ def set_pair_layout_gradient(dV, dT):
 
 @threaded_kernel
 def set_pair_layout_gradients_parts(dV, dTs, cuts):
-    """dV = the sum of the chunks' pair-layout gradients dTs (a tuple, one (d, D(D+1)/2) per chunk), for
-    the k of each fixed range cuts[p]..cuts[p+1]-1 on numba's threads: the chunks summed in chunk order
-    into the first one's rows (which are scratch), then one set_pair_layout_gradient. Every element sees
-    the same additions in the same order whatever the thread count."""
+    """set_pair_layout_gradient for the k of each fixed range cuts[p]..cuts[p+1]-1, the ranges on numba's
+    threads (every element is written by one range, with the same arithmetic: any thread count)."""
     for p in prange(cuts.shape[0] - 1):
-        a = cuts[p]
-        z = cuts[p + 1]
-        total = dTs[0][a:z]
-        for c in range(1, len(dTs)):
-            total += dTs[c][a:z]
-        set_pair_layout_gradient(dV[a:z], total)
+        set_pair_layout_gradient(dV, dTs, cuts[p], cuts[p + 1])
 
 
 @numeric_kernel

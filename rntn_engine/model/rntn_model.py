@@ -87,13 +87,9 @@ class TensorNetwork(RecursiveNetwork):
             set_pair_layout_gradients_parts(grads["V"], tuple(layout_grads), self._k_cuts())
             return
 
-        def work(k: tuple[int, int]) -> None:  # dV[k] for k in the range
-            # the chunks' pair layouts summed in chunk order into the first one's, then one fold that writes
-            # dV as 0 + the sum: the bits of zeroing dV and folding the chunks one after another, for half
-            # the scattered writes of two chunks and no zeroing pass
-            total = layout_grads[0][k[0] : k[1]]
-            for layout_grad in layout_grads[1:]:
-                total += layout_grad[k[0] : k[1]]
-            set_pair_layout_gradient(grads["V"][k[0] : k[1]], total)
+        dTs = tuple(layout_grads)
+
+        def work(k: tuple[int, int]) -> None:  # dV[k] for k in the range: 0 + the chunks' sum, in chunk order
+            set_pair_layout_gradient(grads["V"], dTs, k[0], k[1])
 
         run_parts(work, self._k_ranges())
