@@ -118,3 +118,20 @@ def test_sum_of_squares_against_an_exactly_rounded_sum(dtype):
         x = rng.standard_normal(n).astype(dtype)
         exact = math.fsum(float(v) * float(v) for v in x.astype(np.float64))
         assert sum_of_squares(x) == pytest.approx(exact, rel=1e-13, abs=0.0)
+
+
+@pytest.mark.parametrize("dtype", ["float32", "float64"])
+def test_adagrad_step_sums_the_squares_as_sum_of_squares_does(dtype):
+    # the update takes the penalty's sum of squares in its own pass over theta, with sum_of_squares's
+    # lanes and order: the same bits, whatever the length (lanes only, a tail, fewer than 16)
+    from rntn_engine.kernels.adagrad_step import adagrad_l2_step, sum_of_squares
+
+    rng = np.random.default_rng(9)
+    real = np.dtype(dtype).type
+    for n in (1, 5, 16, 17, 40, 1000, 1023):
+        theta = (rng.standard_normal(n) * 10.0 ** rng.uniform(-3, 3, n)).astype(dtype)
+        expected = sum_of_squares(theta)
+        G, g = rng.random(n).astype(dtype), rng.standard_normal(n).astype(dtype)
+        got = adagrad_l2_step(theta, G, g, real(1e-3), real(0.05), real(1e-6), True, real(0.0))
+        assert got == expected
+        assert not np.any(g)

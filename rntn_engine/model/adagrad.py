@@ -28,7 +28,7 @@ from rntn_engine.model.objective import L2Strengths
 from rntn_engine.model.parameters import L2_GROUP, Gradient, Parameters
 from rntn_engine.model.part_threads import PartThreads
 
-# Dense groups this large (the tensor V from d = 32 on) are updated in DENSE_PARTS pieces on the
+# Dense groups this large (the tensor V from d = 41 on) are updated in DENSE_PARTS pieces on the
 # worker threads: at d = 50 the serial update of V was about 5% of a 1-thread step (1.3 ms of a
 # 25 ms step, float64, per-kernel timers, 2026-12-02). Smaller groups stay on the calling thread:
 # at d = 25 (V of 62,500 numbers) handing the pieces to the threads cost more than it saved (a
