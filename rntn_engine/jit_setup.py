@@ -9,6 +9,7 @@ Three kinds of compiled function:
   thread count; ``nogil=True`` lets those threads run at once; ``fastmath=False`` keeps IEEE
   arithmetic (bit-reproducible results, NaN and inf propagate); ``error_model="numpy"``: a division
   by zero gives inf or NaN, as in NumPy, instead of a Python exception check in every loop.
+  ``inline_kernel``: the same flags, for a small helper inlined into the kernels that call it.
 - ``threaded_kernel``: the same flags with ``parallel=True``, for the few kernels whose ``prange``
   loop hands those fixed parts to numba's threads (see "numba's threads" below).
 - ``byte_scanner``: the treebank scanners, batch builders and slice masks (data/, run/), integer
@@ -50,6 +51,11 @@ SCANNER_FLAGS = {"cache": True, "nogil": True}
 def numeric_kernel(function):
     """Compile an arithmetic kernel with :data:`NUMERIC_FLAGS`."""
     return njit(**NUMERIC_FLAGS)(function)
+
+
+def inline_kernel(function):
+    """A helper of arithmetic kernels, inlined into them (numba IR inlining): :data:`NUMERIC_FLAGS`."""
+    return njit(inline="always", **NUMERIC_FLAGS)(function)
 
 
 def threaded_kernel(function):
@@ -111,7 +117,7 @@ def byte_scanner(function=None, *, inline: bool = False):
 # --- a damaged on-disk cache is a cache miss ------------------------------------------------------
 
 _PICKLES_IN = {".nbi": 2, ".nbc": 1}  # complete pickles in a sound index / data file
-_DECORATORS = ("@numeric_kernel", "@threaded_kernel", "@byte_scanner")
+_DECORATORS = ("@numeric_kernel", "@inline_kernel", "@threaded_kernel", "@byte_scanner")
 
 
 def complete_pickles(data: bytes) -> int:

@@ -18,9 +18,7 @@ from __future__ import annotations
 import numpy as np
 from numba import prange
 
-from numba import njit
-
-from rntn_engine.jit_setup import NUMERIC_FLAGS, numeric_kernel, threaded_kernel
+from rntn_engine.jit_setup import inline_kernel, numeric_kernel, threaded_kernel
 from rntn_engine.kernels.cache_hints import ROWS_AHEAD, prefetch_row
 
 
@@ -34,7 +32,16 @@ def sum_of_squares(x):
     loop over a row of lanes has no dependency between its iterations, so LLVM vectorises it (the
     lanes' sums held in SIMD registers): 26 -> 11 us for 62,500 float32 numbers (V at d = 25), against
     eight scalar chains before (ad-hoc timing, medians of 300 calls)."""
-    n = x.shape[0]
+    zero = x.dtype.type(0.0)
+    return _squares_then_update(x, x, x, zero, zero, zero, zero, False)
+
+
+@inline_kernel
+def _squares_then_update(theta, G, g, lam, lr, eps, flush_below, update):
+    """sum_of_squares of theta, and with ``update`` adagrad_l2_step's update of every element in the
+    same pass, each element squared before it is updated (inlined into both kernels: ``update`` is a
+    constant there and its branch goes away)."""
+    n = theta.shape[0]
     acc = np.zeros(SQUARE_LANES)
     # a trip count the compiler cannot fold to a constant: a constant 16 gets the loop unrolled into
     # scalar code (numba leaves LLVM's SLP vectorizer off), a run-time one gets it vectorised
@@ -43,15 +50,32 @@ def sum_of_squares(x):
     for r in range(rows):
         base = r * lanes
         for t in range(lanes):
-            v = np.float64(x[base + t])
+            i = base + t
+            v = np.float64(theta[i])
             acc[t] += v * v
+            if update:
+                _adagrad_element(theta, G, g, i, lam, lr, eps, flush_below)
     total = 0.0
     for t in range(lanes):
         total += acc[t]
     for i in range(rows * lanes, n):
-        v = np.float64(x[i])
+        v = np.float64(theta[i])
         total += v * v
+        if update:
+            _adagrad_element(theta, G, g, i, lam, lr, eps, flush_below)
     return total
+
+
+@inline_kernel
+def _adagrad_element(theta, G, g, i, lam, lr, eps, flush_below):
+    """One element of adagrad_l2_step's update (inlined into its loops)."""
+    gi = g[i] + lam * theta[i]
+    G[i] += gi * gi
+    t = theta[i] - lr * gi / (np.sqrt(G[i]) + eps)
+    # flush near-subnormal numbers to zero: L2 walks unused rows towards 0, and subnormal
+    # operands make every later multiply in the kernels many times slower (measured)
+    theta[i] = 0.0 if abs(t) < flush_below else t  # (NaN stays NaN: the trainer must see it)
+    g[i] = 0
 
 
 @numeric_kernel
@@ -73,39 +97,9 @@ def adagrad_l2_step(theta, G, g, lam, lr, eps, update, flush_below):
         for i in range(theta.shape[0]):
             g[i] = 0
         return sum_of_squares(theta)
-    # the sum of squares of theta before the update, taken in the update's own pass over theta with
-    # sum_of_squares's lanes and order (the same bits, one read of theta fewer)
-    n = theta.shape[0]
-    acc = np.zeros(SQUARE_LANES)
-    lanes = max(1, min(SQUARE_LANES, n))  # not a compile-time constant: see sum_of_squares
-    rows = n // lanes
-    for r in range(rows):
-        base = r * lanes
-        for t in range(lanes):
-            i = base + t
-            v = np.float64(theta[i])
-            acc[t] += v * v
-            _adagrad_element(theta, G, g, i, lam, lr, eps, flush_below)
-    squares = 0.0
-    for t in range(lanes):
-        squares += acc[t]
-    for i in range(rows * lanes, n):
-        v = np.float64(theta[i])
-        squares += v * v
-        _adagrad_element(theta, G, g, i, lam, lr, eps, flush_below)
-    return squares
-
-
-@njit(inline="always", **NUMERIC_FLAGS)
-def _adagrad_element(theta, G, g, i, lam, lr, eps, flush_below):
-    """One element of adagrad_l2_step's update (inlined into its loops)."""
-    gi = g[i] + lam * theta[i]
-    G[i] += gi * gi
-    t = theta[i] - lr * gi / (np.sqrt(G[i]) + eps)
-    # flush near-subnormal numbers to zero: L2 walks unused rows towards 0, and subnormal
-    # operands make every later multiply in the kernels many times slower (measured)
-    theta[i] = 0.0 if abs(t) < flush_below else t  # (NaN stays NaN: the trainer must see it)
-    g[i] = 0
+    # the sum of squares of theta before the update, in the update's own pass over theta with
+    # sum_of_squares's lanes and order: the same bits, one read of theta fewer
+    return _squares_then_update(theta, G, g, lam, lr, eps, flush_below, True)
 
 
 @numeric_kernel
