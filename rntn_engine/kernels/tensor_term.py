@@ -253,17 +253,24 @@ def set_pair_layout_gradient(dV, dTs, k0, k1):
     D = dV.shape[1]
     zero = dV.dtype.type(0.0)
     chunks = len(dTs)
+    row = np.empty(D, dtype=dV.dtype)  # the pairs (i, i..D-1) of one i: contiguous in every dT
     for k in range(k0, k1):
         p = 0
         for i in range(D):
-            for j in range(i, D):
-                s = dTs[0][k, p]
-                for c in range(1, chunks):
-                    s += dTs[c][k, p]
-                value = zero + s
-                dV[k, i, j] = value
-                dV[k, j, i] = value
-                p += 1
+            w = D - i
+            first = dTs[0][k, p : p + w]
+            for j in range(w):
+                row[j] = zero + first[j]  # 0 + a, then + b, ...: as zeroing dV then adding chunk by chunk
+            for c in range(1, chunks):
+                other = dTs[c][k, p : p + w]
+                for j in range(w):
+                    row[j] += other[j]
+            out = dV[k, i, i:]
+            for j in range(w):  # dV[k, i, j] for j >= i: a contiguous row
+                out[j] = row[j]
+            for j in range(1, w):  # dV[k, j, i] for j > i: a column
+                dV[k, i + j, i] = row[j]
+            p += w
 
 
 @threaded_kernel
