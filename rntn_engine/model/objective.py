@@ -38,7 +38,10 @@ word ids), in chunk order.
 Models: the composition (forward and backward up the trees, the word arrays' node errors,
 per-step preparation such as the RNTN's tensor layout) is the model specification's
 (model_spec.py, one module per model); the classifier (kernels/node_classifier.py) and
-everything else here is shared by every model.
+everything else here is shared by every model. A specification may also run a chunk's whole
+gradient -- composition, classifier and word rows -- as compiled calls of its own
+(``gradient_chunks``: the RNN and the RNTN do, kernels/chunk_gradient.py, with the same bits as
+the chunk-by-chunk path here, which the MV-RNN takes).
 """
 
 from __future__ import annotations
