@@ -153,17 +153,25 @@ class RecursiveNetwork(ModelSpec):
                               batch.leaves, values, ids))
         shared = (params.L, params.W, params.b, self.Vsym, params.Ws, params.bs)
         fixed = (class_weights, scale, self.with_tensor, self.own_kernel_rows, self._no_pairs)
-        if threads.kernel_threads and len(jobs) > 1:
-            fields = tuple(zip(*per_chunk))  # one tuple per argument, one entry per chunk
-            losses = np.zeros(len(jobs))
-            counts = np.zeros(len(jobs), dtype=np.int64)
-            use_threads(threads.kernel_threads)
-            vector_chunks_gradient(*fields[:16], *shared, *fields[16:23], *fixed, *fields[23:], losses, counts)
-            results = list(zip(losses, counts))
-        else:
-            def run(a: tuple) -> tuple[float, int]:
-                return vector_chunk_gradient(*a[:16], *shared, *a[16:23], *fixed, *a[23:])
 
+        def run(a: tuple) -> tuple[float, int]:
+            return vector_chunk_gradient(*a[:16], *shared, *a[16:23], *fixed, *a[23:])
+
+        width = threads.kernel_threads  # chunks per threaded call: one per thread
+        if width > 1 and len(jobs) >= width:
+            # groups of `width` chunks on numba's threads, any chunks left over on this thread: the
+            # threaded kernel is then compiled once per thread count, not once per number of chunks
+            # (about 8 s each, tuples of another length being another type)
+            results = []
+            use_threads(width)
+            for start in range(0, len(jobs) - width + 1, width):
+                fields = tuple(zip(*per_chunk[start : start + width]))  # one tuple per argument, a chunk each
+                losses = np.zeros(width)
+                counts = np.zeros(width, dtype=np.int64)
+                vector_chunks_gradient(*fields[:16], *shared, *fields[16:23], *fixed, *fields[23:], losses, counts)
+                results += list(zip(losses, counts))
+            results += [run(a) for a in per_chunk[len(results):]]
+        else:
             results = threads.run(run, per_chunk)
         for job, (loss, n) in zip(jobs, results):
             job.loss = float(loss)
