@@ -11,8 +11,9 @@ A chunk's gradient is five kernels in a row, each documented (equations, shapes)
 
 ``vector_chunk_gradient`` calls them in that order with nothing between them, the arithmetic of calling
 them one by one from Python (the same bits: tests/test_chunk_gradient.py), without the interpreter in
-between; ``vector_chunks_gradient`` runs it for every chunk of a minibatch on numba's threads
-(jit_setup.py, "numba's threads"): each chunk writes only its own buffers, so the result does not
+between; ``vector_chunks_gradient`` runs it for a group of chunks at once on numba's threads
+(jit_setup.py, "numba's threads"; model/rnn_model.py hands it one chunk per thread, so that it
+compiles once per thread count): each chunk writes only its own buffers, so the result does not
 depend on the thread count. There is no backward "twin" to pair here: this file only composes.
 
 Per-chunk arguments of ``vector_chunks_gradient`` are tuples with one entry per chunk (numba indexes a
