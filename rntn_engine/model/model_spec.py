@@ -178,7 +178,7 @@ class ModelSpec(ABC):
         """Set the minibatch's arrays of ``reduced_from_layout`` in ``grads`` to the sum of every chunk's
         extra gradient, in chunk order for every element, with the bits of zeroing them and adding the
         chunks one by one (``run_parts`` and ``kernel_threads`` as in prepare); nothing for a model without
-        one. The chunks' buffers are scratch, rewritten every step: this may sum them into the first one."""
+        one. The chunks' buffers are scratch, rewritten every step: this may overwrite them."""
 
 
 # --- draws shared by the models (model/parameters.py lists the distributions) -------------------------

@@ -158,10 +158,11 @@ class RecursiveNetwork(ModelSpec):
             return vector_chunk_gradient(*a[:16], *shared, *a[16:23], *fixed, *a[23:])
 
         width = threads.kernel_threads  # chunks per threaded call: one per thread
-        if width > 1 and len(jobs) >= width:
-            # groups of `width` chunks on numba's threads, any chunks left over on this thread: the
-            # threaded kernel is then compiled once per thread count, not once per number of chunks
-            # (about 8 s each, tuples of another length being another type)
+        if width > 1:
+            # groups of `width` chunks on numba's threads, any chunks left over on this thread (not on the
+            # Python pool, whose hand-over is what numba's threads avoid): the threaded kernel is then
+            # compiled once per thread count, not once per number of chunks (about 8 s each, tuples of
+            # another length being another type)
             results = []
             use_threads(width)
             for start in range(0, len(jobs) - width + 1, width):
